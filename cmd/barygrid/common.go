@@ -1,0 +1,169 @@
+package main
+
+import (
+	"encoding/json"
+	"fmt"
+	"io"
+	"math"
+	"os"
+	"strconv"
+	"strings"
+
+	"barygrid/grid"
+	"barygrid/io/fieldfile"
+
+	"github.com/urfave/cli/v2"
+)
+
+// inputFlags are the preprocessing options every command that reads fields
+// shares.
+func inputFlags() []cli.Flag {
+	return []cli.Flag{
+		&cli.StringFlag{Name: "pixel-size", Usage: "physical pixel size `DX[,DY]` (default 1)"},
+		&cli.StringFlag{Name: "unit", Usage: "name of the physical unit of the pixel size (um, km, ...)"},
+		&cli.BoolFlag{Name: "invert", Usage: "read dark objects on a light background (value -> max - value)"},
+		&cli.StringFlag{Name: "background", Usage: "subtract a constant `LEVEL`, or a percentile written pNN (p10), and clip at zero"},
+		&cli.IntFlag{Name: "max-pixels", Value: 1 << 28, Usage: "refuse inputs declaring more pixels than this, before reading them"},
+		&cli.StringFlag{Name: "resample", Usage: "resample every input to `ROWSxCOLS` (off: differing shapes are an error)"},
+	}
+}
+
+func outputFlags() []cli.Flag {
+	return []cli.Flag{
+		&cli.BoolFlag{Name: "force", Usage: "replace existing output files"},
+		&cli.BoolFlag{Name: "eight-bit", Usage: "write 8-bit instead of 16-bit PNG and TIFF samples"},
+		&cli.BoolFlag{Name: "color", Usage: "write PNG output through barygrid's Ember colour map"},
+	}
+}
+
+func loadSettings(c *cli.Context) (fieldfile.LoadSettings, error) {
+	s := fieldfile.LoadSettings{MaxPixels: c.Int("max-pixels"), Invert: c.Bool("invert"), Unit: c.String("unit")}
+	if v := c.String("pixel-size"); v != "" {
+		xs, err := parseFloats(v)
+		if err != nil || len(xs) > 2 || len(xs) == 0 || !(xs[0] > 0) || (len(xs) == 2 && !(xs[1] > 0)) {
+			return s, usagef("--pixel-size: want DX or DX,DY with positive numbers, got %q", v)
+		}
+		s.Dx, s.Dy = xs[0], xs[0]
+		if len(xs) == 2 {
+			s.Dy = xs[1]
+		}
+	}
+	if v := c.String("background"); v != "" {
+		if strings.HasPrefix(v, "p") {
+			p, err := strconv.ParseFloat(v[1:], 64)
+			if err != nil || !(p > 0 && p <= 100) {
+				return s, usagef("--background: percentile must be p0..p100, got %q", v)
+			}
+			s.BackgroundPercentile = p
+		} else {
+			b, err := strconv.ParseFloat(v, 64)
+			if err != nil || math.IsNaN(b) || math.IsInf(b, 0) {
+				return s, usagef("--background: want a number or pNN, got %q", v)
+			}
+			s.Background = b
+		}
+	}
+	return s, nil
+}
+
+func parseFloats(v string) ([]float64, error) {
+	var out []float64
+	for _, p := range strings.Split(v, ",") {
+		x, err := strconv.ParseFloat(strings.TrimSpace(p), 64)
+		if err != nil || math.IsNaN(x) || math.IsInf(x, 0) {
+			return nil, fmt.Errorf("%q is not a number", p)
+		}
+		out = append(out, x)
+	}
+	return out, nil
+}
+
+// loadFields reads every file, applies the shared preprocessing and checks
+// that shapes agree (or resamples when asked).
+func loadFields(c *cli.Context, files []string) ([]*grid.Field, error) {
+	if len(files) == 0 {
+		return nil, usagef("%s: no input files", c.Command.Name)
+	}
+	s, err := loadSettings(c)
+	if err != nil {
+		return nil, err
+	}
+	var fs []*grid.Field
+	for _, p := range files {
+		f, err := fieldfile.Load(p, s)
+		if err != nil {
+			return nil, err
+		}
+		fs = append(fs, f)
+	}
+	if v := c.String("resample"); v != "" {
+		var rows, cols int
+		if _, err := fmt.Sscanf(v, "%dx%d", &rows, &cols); err != nil || rows < 2 || cols < 2 {
+			return nil, usagef("--resample: want ROWSxCOLS, got %q", v)
+		}
+		for i, f := range fs {
+			if fs[i], err = grid.Resample(f, rows, cols); err != nil {
+				return nil, fmt.Errorf("%s: %w", files[i], err)
+			}
+		}
+	}
+	if err := grid.SameShape(fs, files); err != nil {
+		return nil, fmt.Errorf("%v (use --resample ROWSxCOLS)", err)
+	}
+	return fs, nil
+}
+
+func saveSettings(c *cli.Context) fieldfile.SaveSettings {
+	return fieldfile.SaveSettings{Force: c.Bool("force"), EightBit: c.Bool("eight-bit"), Color: c.Bool("color")}
+}
+
+// writeJSON writes v as indented JSON atomically.
+func writeJSON(path string, force bool, v any) error {
+	return fieldfile.WriteAtomic(path, force, func(w io.Writer) error {
+		enc := json.NewEncoder(w)
+		enc.SetIndent("", "  ")
+		return enc.Encode(v)
+	})
+}
+
+// checkOutputs refuses before any work when an output exists without --force.
+func checkOutputs(force bool, paths ...string) error {
+	if force {
+		return nil
+	}
+	for _, p := range paths {
+		if p == "" {
+			continue
+		}
+		if _, err := os.Lstat(p); err == nil {
+			return fmt.Errorf("%s: %w", p, fieldfile.ErrExists)
+		}
+	}
+	return nil
+}
+
+func isTerminal(f *os.File) bool {
+	st, err := f.Stat()
+	return err == nil && st.Mode()&os.ModeCharDevice != 0
+}
+
+func parseWeights(v string, n int) ([]float64, error) {
+	if v == "" {
+		return nil, nil
+	}
+	w, err := parseFloats(v)
+	if err != nil {
+		return nil, usagef("--weights: %v", err)
+	}
+	if len(w) != n {
+		return nil, usagef("--weights: %d weights for %d inputs", len(w), n)
+	}
+	for _, x := range w {
+		if x < 0 {
+			return nil, usagef("--weights: weights must be non-negative, got %g", x)
+		}
+	}
+	return w, nil
+}
+
+func sqrtf(x float64) float64 { return math.Sqrt(x) }

@@ -1,0 +1,84 @@
+// Command barygrid averages 2-D intensity fields by optimal transport.
+//
+// Run "barygrid help" for the commands; README.md shows the common uses.
+package main
+
+import (
+	"errors"
+	"fmt"
+	"os"
+	"strings"
+
+	"github.com/urfave/cli/v2"
+)
+
+// usageError marks errors in how the command was called (exit status 2).
+type usageError struct{ err error }
+
+func (e usageError) Error() string { return e.err.Error() }
+func (e usageError) Unwrap() error { return e.err }
+
+func usagef(format string, args ...any) error {
+	return usageError{fmt.Errorf(format, args...)}
+}
+
+func main() {
+	os.Exit(run(os.Args))
+}
+
+// run executes the command line and returns the exit status: 0 success,
+// 2 usage error, 1 any other failure. It never panics on bad input: every
+// error becomes one line on stderr.
+func run(args []string) (status int) {
+	defer func() {
+		if r := recover(); r != nil {
+			fmt.Fprintf(os.Stderr, "barygrid: internal error: %v\n", r)
+			status = 1
+		}
+	}()
+	app := newApp()
+	err := app.Run(args)
+	if err == nil {
+		return 0
+	}
+	msg := strings.TrimSpace(err.Error())
+	msg = strings.ReplaceAll(msg, "\n", "; ")
+	fmt.Fprintf(os.Stderr, "barygrid: %s\n", msg)
+	var ue usageError
+	if errors.As(err, &ue) {
+		return 2
+	}
+	return 1
+}
+
+func newApp() *cli.App {
+	return &cli.App{
+		Name:  "barygrid",
+		Usage: "average 2-D intensity fields by optimal transport",
+		Description: "barygrid reads images, NumPy arrays and numeric grids as measures on a grid " +
+			"and computes their Wasserstein barycenter, so that shifted or deformed objects " +
+			"average to a sharp representative instead of a blurred ghost.",
+		HideHelpCommand: true,
+		OnUsageError: func(c *cli.Context, err error, isSub bool) error {
+			return usageError{err}
+		},
+		Commands: []*cli.Command{
+			inspectCommand(),
+			barycenterCommand(),
+			gaussCommand(),
+			demoCommand(),
+		},
+		CommandNotFound: func(c *cli.Context, name string) {
+			fmt.Fprintf(os.Stderr, "barygrid: no command %q (see barygrid --help)\n", name)
+			os.Exit(2)
+		},
+	}
+}
+
+// usageOnError marks flag-parsing errors of a subcommand as usage errors.
+func withUsage(cmd *cli.Command) *cli.Command {
+	cmd.OnUsageError = func(c *cli.Context, err error, isSub bool) error {
+		return usageError{err}
+	}
+	return cmd
+}

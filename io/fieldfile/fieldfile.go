@@ -1,0 +1,281 @@
+package fieldfile
+
+import (
+	"bytes"
+	"errors"
+	"fmt"
+	"io"
+	"io/fs"
+	"os"
+	"path/filepath"
+	"strings"
+
+	"barygrid/grid"
+	"barygrid/io/csvgrid"
+	"barygrid/io/imagefile"
+	"barygrid/io/npy"
+)
+
+// Format names a file family.
+type Format string
+
+// Formats recognised by content.
+const (
+	PNG  Format = "png"
+	JPEG Format = "jpeg"
+	TIFF Format = "tiff"
+	BMP  Format = "bmp"
+	GIF  Format = "gif"
+	NPY  Format = "npy"
+	Text Format = "csv"
+)
+
+var extFormat = map[string]Format{
+	".png": PNG, ".jpg": JPEG, ".jpeg": JPEG, ".tif": TIFF, ".tiff": TIFF,
+	".bmp": BMP, ".npy": NPY, ".csv": Text, ".tsv": Text, ".txt": Text, ".dat": Text,
+}
+
+// Sniff returns the format the content announces, or Text when it has no
+// known magic number.
+func Sniff(data []byte) Format {
+	switch {
+	case bytes.HasPrefix(data, []byte("\x89PNG\r\n\x1a\n")):
+		return PNG
+	case bytes.HasPrefix(data, []byte{0xFF, 0xD8, 0xFF}):
+		return JPEG
+	case bytes.HasPrefix(data, []byte("II*\x00")), bytes.HasPrefix(data, []byte("MM\x00*")):
+		return TIFF
+	case bytes.HasPrefix(data, []byte("BM")):
+		return BMP
+	case bytes.HasPrefix(data, []byte("GIF8")):
+		return GIF
+	case bytes.HasPrefix(data, []byte("\x93NUMPY")):
+		return NPY
+	}
+	return Text
+}
+
+// LoadSettings are the preprocessing steps shared by every command, applied
+// in this order: invert, subtract background, set pixel size.
+type LoadSettings struct {
+	// MaxPixels refuses larger inputs before allocating; zero means 2^28.
+	MaxPixels int
+	// Invert reads dark objects on a light background (value -> max - value).
+	Invert bool
+	// Background is subtracted and the result clipped at zero. When
+	// BackgroundPercentile is set, the level is that percentile of the field.
+	Background           float64
+	BackgroundPercentile float64
+	// Dx, Dy, Unit override the pixel size; zero keeps 1.
+	Dx, Dy float64
+	Unit   string
+	// SkipValidate keeps fields that are not measures (all zero), for
+	// masks and inspection.
+	SkipValidate bool
+}
+
+// Load reads the field in path. Errors name the file and the cause.
+func Load(path string, s LoadSettings) (*grid.Field, error) {
+	data, err := os.ReadFile(path)
+	if err != nil {
+		var pe *fs.PathError
+		if errors.As(err, &pe) {
+			return nil, fmt.Errorf("%s: %v", path, pe.Err)
+		}
+		return nil, fmt.Errorf("%s: %w", path, err)
+	}
+	f, err := Decode(data, filepath.Ext(path), s)
+	if err != nil {
+		return nil, fmt.Errorf("%s: %w", path, err)
+	}
+	return f, nil
+}
+
+// Decode reads a field from bytes; ext (".png", ...) is checked against the
+// content and may be empty.
+func Decode(data []byte, ext string, s LoadSettings) (*grid.Field, error) {
+	if len(data) == 0 {
+		return nil, errors.New("empty file")
+	}
+	got := Sniff(data)
+	want, known := extFormat[strings.ToLower(ext)]
+	if known && want != got && !(want == Text && got == Text) {
+		return nil, fmt.Errorf("content is not %s (looks like %s)", describe(want), describe(got))
+	}
+	var (
+		f   *grid.Field
+		err error
+	)
+	switch got {
+	case NPY:
+		f, err = npy.Read(data, npy.ReadSettings{MaxPixels: s.MaxPixels})
+	case Text:
+		f, err = csvgrid.Read(data, csvgrid.ReadSettings{MaxPixels: s.MaxPixels})
+	default:
+		f, err = imagefile.Read(data, imagefile.ReadSettings{MaxPixels: s.MaxPixels})
+	}
+	if err != nil {
+		return nil, err
+	}
+	return Prepare(f, s)
+}
+
+func describe(f Format) string {
+	switch f {
+	case Text:
+		return "a text grid"
+	case NPY:
+		return "a NumPy array"
+	}
+	return "a " + strings.ToUpper(string(f)) + " image"
+}
+
+// Prepare applies the shared preprocessing to a decoded field and checks
+// that the result is a measure.
+func Prepare(f *grid.Field, s LoadSettings) (*grid.Field, error) {
+	if s.Invert {
+		f = grid.Invert(f)
+	}
+	if s.BackgroundPercentile > 0 {
+		f = grid.SubtractBackground(f, grid.Percentile(f, s.BackgroundPercentile))
+	} else if s.Background != 0 {
+		f = grid.SubtractBackground(f, s.Background)
+	}
+	if s.Dx > 0 {
+		f.Dx = s.Dx
+	}
+	if s.Dy > 0 {
+		f.Dy = s.Dy
+	} else if s.Dx > 0 {
+		f.Dy = s.Dx
+	}
+	f.Unit = s.Unit
+	if s.SkipValidate {
+		return f, nil
+	}
+	if err := f.Validate(); err != nil {
+		return nil, err
+	}
+	return f, nil
+}
+
+// SaveSettings choose how Save writes.
+type SaveSettings struct {
+	// Force replaces an existing file.
+	Force bool
+	// EightBit writes 8-bit PNG/TIFF samples instead of 16-bit.
+	EightBit bool
+	// Color writes PNG through the Ember colour map.
+	Color bool
+}
+
+// Save writes f to path in the format its extension names (.npy exact
+// float64, .csv, .png 16-bit gray, .tif 16-bit). It returns a description of
+// the value scaling for image formats ("" for exact formats).
+func Save(path string, f *grid.Field, s SaveSettings) (string, error) {
+	ext := strings.ToLower(filepath.Ext(path))
+	var (
+		scaling string
+		enc     func(io.Writer) error
+	)
+	ws := imagefile.WriteSettings{EightBit: s.EightBit}
+	switch ext {
+	case ".npy":
+		enc = func(w io.Writer) error { return npy.Write(w, f) }
+	case ".csv", ".txt":
+		enc = func(w io.Writer) error { return csvgrid.Write(w, f) }
+	case ".png":
+		enc = func(w io.Writer) error {
+			var sc imagefile.Scaling
+			var err error
+			if s.Color {
+				sc, err = imagefile.WriteColorPNG(w, f, ws)
+			} else {
+				sc, err = imagefile.WritePNG(w, f, ws)
+			}
+			scaling = sc.String()
+			return err
+		}
+	case ".tif", ".tiff":
+		enc = func(w io.Writer) error {
+			sc, err := imagefile.WriteTIFF(w, f, ws)
+			scaling = sc.String()
+			return err
+		}
+	default:
+		return "", fmt.Errorf("%s: unknown output format %q (use .npy, .csv, .png or .tif)", path, ext)
+	}
+	if err := WriteAtomic(path, s.Force, enc); err != nil {
+		return "", err
+	}
+	return scaling, nil
+}
+
+// ErrExists is returned when an output exists and Force is not set.
+var ErrExists = errors.New("file exists (use --force to replace it)")
+
+// WriteAtomic writes through a temporary file in the target's folder and
+// renames it into place, so a crash or an error never leaves a partial file
+// and readers see either the old or the new content. Without force an
+// existing file is kept and ErrExists returned.
+func WriteAtomic(path string, force bool, write func(io.Writer) error) error {
+	if !force {
+		if _, err := os.Lstat(path); err == nil {
+			return fmt.Errorf("%s: %w", path, ErrExists)
+		}
+	}
+	dir := filepath.Dir(path)
+	tmp, err := os.CreateTemp(dir, "."+filepath.Base(path)+".tmp*")
+	if err != nil {
+		return fmt.Errorf("%s: %v", path, unwrapPath(err))
+	}
+	name := tmp.Name()
+	fail := func(err error) error {
+		tmp.Close()
+		os.Remove(name)
+		return fmt.Errorf("%s: %v", path, unwrapPath(err))
+	}
+	if err := write(tmp); err != nil {
+		return fail(err)
+	}
+	if err := tmp.Sync(); err != nil {
+		return fail(err)
+	}
+	if err := tmp.Close(); err != nil {
+		os.Remove(name)
+		return fmt.Errorf("%s: %v", path, unwrapPath(err))
+	}
+	if err := os.Chmod(name, 0o644); err != nil {
+		os.Remove(name)
+		return fmt.Errorf("%s: %v", path, unwrapPath(err))
+	}
+	if !force {
+		// Link fails if the target appeared meanwhile: no clobbering race.
+		if err := os.Link(name, path); err != nil {
+			os.Remove(name)
+			if errors.Is(err, fs.ErrExist) {
+				return fmt.Errorf("%s: %w", path, ErrExists)
+			}
+			return fmt.Errorf("%s: %v", path, unwrapPath(err))
+		}
+		os.Remove(name)
+		return nil
+	}
+	if err := os.Rename(name, path); err != nil {
+		os.Remove(name)
+		return fmt.Errorf("%s: %v", path, unwrapPath(err))
+	}
+	return nil
+}
+
+func unwrapPath(err error) error {
+	var pe *fs.PathError
+	if errors.As(err, &pe) {
+		return pe.Err
+	}
+	var le *os.LinkError
+	if errors.As(err, &le) {
+		return le.Err
+	}
+	return err
+}

@@ -1,0 +1,175 @@
+package imagefile
+
+import (
+	"bytes"
+	"encoding/binary"
+	"hash/crc32"
+	"image"
+	"image/color"
+	"image/jpeg"
+	"image/png"
+	"math"
+	"strings"
+	"testing"
+
+	"barygrid/grid"
+
+	"golang.org/x/image/bmp"
+)
+
+func ramp16() *grid.Field {
+	f := grid.New(5, 7)
+	for i := range f.Data {
+		f.Data[i] = float64(i * 1871 % 65536)
+	}
+	return f
+}
+
+// 16-bit integer samples survive PNG and TIFF exactly.
+func TestRoundTrip16(t *testing.T) {
+	f := ramp16()
+	for name, w := range map[string]func(*bytes.Buffer) error{
+		"png":  func(b *bytes.Buffer) error { _, err := WritePNG(b, f, WriteSettings{}); return err },
+		"tiff": func(b *bytes.Buffer) error { _, err := WriteTIFF(b, f, WriteSettings{}); return err },
+	} {
+		var buf bytes.Buffer
+		if err := w(&buf); err != nil {
+			t.Fatal(err)
+		}
+		g, err := Read(buf.Bytes(), ReadSettings{})
+		if err != nil {
+			t.Fatalf("%s: %v", name, err)
+		}
+		for i := range f.Data {
+			if g.Data[i] != f.Data[i] {
+				t.Fatalf("%s: pixel %d = %v, want %v", name, i, g.Data[i], f.Data[i])
+			}
+		}
+	}
+}
+
+func TestRoundTripScaled(t *testing.T) {
+	f := grid.New(4, 4)
+	for i := range f.Data {
+		f.Data[i] = float64(i) / 1000
+	}
+	var buf bytes.Buffer
+	sc, err := WritePNG(&buf, f, WriteSettings{EightBit: true})
+	if err != nil {
+		t.Fatal(err)
+	}
+	g, err := Read(buf.Bytes(), ReadSettings{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	for i := range f.Data {
+		if back := sc.Invert(g.Data[i]); back-f.Data[i] > 0.015/255+1e-12 || f.Data[i]-back > 0.015/255+1e-12 {
+			t.Fatalf("pixel %d: %v -> %v", i, f.Data[i], back)
+		}
+	}
+}
+
+// Luminance uses the BT.709 weights (ITU-R BT.709, standard): pure green
+// 255 reads as 0.7152 * 255; a half-transparent white as half of 255.
+func TestColourAndAlpha(t *testing.T) {
+	im := image.NewNRGBA(image.Rect(0, 0, 2, 1))
+	im.Set(0, 0, color.NRGBA{0, 255, 0, 255})
+	im.Set(1, 0, color.NRGBA{255, 255, 255, 128})
+	var buf bytes.Buffer
+	png.Encode(&buf, im)
+	f, err := Read(buf.Bytes(), ReadSettings{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if d := f.Data[0] - 0.7152*255; d > 1e-9 || d < -1e-9 {
+		t.Errorf("green = %v, want %v", f.Data[0], 0.7152*255)
+	}
+	if d := f.Data[1] - 128; d > 0.6 || d < -0.6 {
+		t.Errorf("half-transparent white = %v, want about 128", f.Data[1])
+	}
+}
+
+func TestJPEGAndBMP(t *testing.T) {
+	im := image.NewGray(image.Rect(0, 0, 16, 8))
+	for i := range im.Pix {
+		im.Pix[i] = 100
+	}
+	var j, b bytes.Buffer
+	jpeg.Encode(&j, im, &jpeg.Options{Quality: 95})
+	bmp.Encode(&b, im)
+	for name, data := range map[string][]byte{"jpeg": j.Bytes(), "bmp": b.Bytes()} {
+		f, err := Read(data, ReadSettings{})
+		if err != nil || f.Rows != 8 || f.Cols != 16 {
+			t.Fatalf("%s: %v", name, err)
+		}
+		if d := f.Data[3] - 100; d > 2 || d < -2 {
+			t.Errorf("%s: value %v, want 100", name, f.Data[3])
+		}
+	}
+}
+
+// hugePNG returns a valid PNG header declaring w x h pixels and no data.
+func hugePNG(w, h uint32) []byte {
+	var b bytes.Buffer
+	b.WriteString("\x89PNG\r\n\x1a\n")
+	ihdr := make([]byte, 13)
+	binary.BigEndian.PutUint32(ihdr, w)
+	binary.BigEndian.PutUint32(ihdr[4:], h)
+	ihdr[8], ihdr[9] = 8, 0
+	chunk := append([]byte("IHDR"), ihdr...)
+	binary.Write(&b, binary.BigEndian, uint32(13))
+	b.Write(chunk)
+	binary.Write(&b, binary.BigEndian, crc32.ChecksumIEEE(chunk))
+	return b.Bytes()
+}
+
+func TestRefusesHugeBeforeDecoding(t *testing.T) {
+	_, err := Read(hugePNG(100000, 100000), ReadSettings{})
+	if err == nil || !strings.Contains(err.Error(), "more than the limit") {
+		t.Fatalf("got %v", err)
+	}
+}
+
+func TestTruncated(t *testing.T) {
+	var buf bytes.Buffer
+	WritePNG(&buf, ramp16(), WriteSettings{})
+	_, err := Read(buf.Bytes()[:buf.Len()-20], ReadSettings{})
+	if err == nil {
+		t.Fatal("truncated PNG accepted")
+	}
+}
+
+// Ember's OKLab lightness never falls from one level to the next (the
+// property asked of it; OKLab per Ottosson 2020). Rounding to 8-bit sRGB
+// may tie two neighbours (steps are 0.003 in L), never reverse them by
+// more than that rounding.
+func TestEmberMonotoneLightness(t *testing.T) {
+	first := LinearToOKLabL(Decode(Ember[0].R), Decode(Ember[0].G), Decode(Ember[0].B))
+	prev := first
+	for i, c := range Ember[1:] {
+		L := LinearToOKLabL(Decode(c.R), Decode(c.G), Decode(c.B))
+		if L < prev-5e-4 {
+			t.Fatalf("level %d: lightness %.4f below %.4f", i+1, L, prev)
+		}
+		prev = math.Max(prev, L)
+	}
+	if prev-first < 0.75 {
+		t.Errorf("lightness spans only %.3f", prev-first)
+	}
+}
+
+func FuzzRead(f *testing.F) {
+	var p bytes.Buffer
+	WritePNG(&p, ramp16(), WriteSettings{})
+	f.Add(p.Bytes())
+	var t8 bytes.Buffer
+	WriteTIFF(&t8, ramp16(), WriteSettings{EightBit: true})
+	f.Add(t8.Bytes())
+	f.Add(hugePNG(3, 3))
+	f.Fuzz(func(t *testing.T, data []byte) {
+		g, err := Read(data, ReadSettings{MaxPixels: 1 << 16})
+		if err == nil && len(g.Data) != g.Rows*g.Cols {
+			t.Fatalf("inconsistent field")
+		}
+	})
+}

@@ -1,0 +1,90 @@
+package npy
+
+import (
+	"bytes"
+	"os"
+	"path/filepath"
+	"strings"
+	"testing"
+
+	"barygrid/grid"
+)
+
+// The fixtures were written by numpy (testdata/make_npy_fixtures.py); each
+// holds the 2 x 3 array arange(6) (times 1.5, or 10000 for u2).
+func TestReadNumpyFixtures(t *testing.T) {
+	cases := map[string]float64{"f8_c.npy": 1.5, "f4_fortran.npy": 1.5, "u2_c.npy": 10000, "i4_be.npy": 1, "u1_c.npy": 1, "i8_c.npy": 1}
+	for name, scale := range cases {
+		data, err := os.ReadFile(filepath.Join("..", "..", "testdata", name))
+		if err != nil {
+			t.Fatal(err)
+		}
+		f, err := Read(data, ReadSettings{})
+		if err != nil {
+			t.Errorf("%s: %v", name, err)
+			continue
+		}
+		if f.Rows != 2 || f.Cols != 3 {
+			t.Errorf("%s: shape %dx%d, want 2x3", name, f.Rows, f.Cols)
+			continue
+		}
+		for i, v := range f.Data {
+			if v != float64(i)*scale {
+				t.Errorf("%s: element %d = %g, want %g", name, i, v, float64(i)*scale)
+			}
+		}
+	}
+}
+
+func TestRejects(t *testing.T) {
+	for name, want := range map[string]string{"bad_3d.npy": "want 2-D", "bad_complex.npy": "complex"} {
+		data, _ := os.ReadFile(filepath.Join("..", "..", "testdata", name))
+		_, err := Read(data, ReadSettings{})
+		if err == nil || !strings.Contains(err.Error(), want) {
+			t.Errorf("%s: got %v, want an error containing %q", name, err, want)
+		}
+	}
+	data, _ := os.ReadFile(filepath.Join("..", "..", "testdata", "f8_c.npy"))
+	if _, err := Read(data[:len(data)-3], ReadSettings{}); err == nil || !strings.Contains(err.Error(), "truncated") {
+		t.Errorf("truncated data: got %v", err)
+	}
+	if _, err := Read(data, ReadSettings{MaxPixels: 5}); err == nil || !strings.Contains(err.Error(), "limit") {
+		t.Errorf("pixel limit: got %v", err)
+	}
+}
+
+func TestRoundTripExact(t *testing.T) {
+	f := grid.New(3, 4)
+	for i := range f.Data {
+		f.Data[i] = 1.0/float64(i+3) + 1e-300*float64(i)
+	}
+	var buf bytes.Buffer
+	if err := Write(&buf, f); err != nil {
+		t.Fatal(err)
+	}
+	g, err := Read(buf.Bytes(), ReadSettings{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	for i := range f.Data {
+		if f.Data[i] != g.Data[i] {
+			t.Fatalf("element %d: %v != %v", i, g.Data[i], f.Data[i])
+		}
+	}
+}
+
+func FuzzRead(f *testing.F) {
+	for _, name := range []string{"f8_c.npy", "f4_fortran.npy", "u2_c.npy", "i4_be.npy", "bad_3d.npy", "bad_complex.npy"} {
+		data, err := os.ReadFile(filepath.Join("..", "..", "testdata", name))
+		if err == nil {
+			f.Add(data)
+		}
+	}
+	f.Add([]byte("\x93NUMPY\x01\x00\x10\x00{'descr': '<f8'}"))
+	f.Fuzz(func(t *testing.T, data []byte) {
+		g, err := Read(data, ReadSettings{MaxPixels: 1 << 16})
+		if err == nil && len(g.Data) != g.Rows*g.Cols {
+			t.Fatalf("inconsistent field %dx%d with %d values", g.Rows, g.Cols, len(g.Data))
+		}
+	})
+}

@@ -1,0 +1,279 @@
+package sinkhorn
+
+import (
+	"errors"
+	"fmt"
+	"math"
+	"time"
+
+	"barygrid/grid"
+)
+
+// Method selects the iteration.
+type Method int
+
+const (
+	// MethodAuto runs the scaling iteration and moves to the log domain
+	// when the scalings leave the range where they are exact.
+	MethodAuto Method = iota
+	// MethodScaling is the plain iteration on scalings u, v.
+	MethodScaling
+	// MethodLog works on log-scalings with epsilon-scaling.
+	MethodLog
+)
+
+func (m Method) String() string {
+	switch m {
+	case MethodScaling:
+		return "scaling"
+	case MethodLog:
+		return "log-domain"
+	}
+	return "auto"
+}
+
+// Status tells how an iteration ended.
+type Status int
+
+const (
+	Converged Status = iota
+	IterationLimit
+	NumericalFailure
+)
+
+func (s Status) String() string {
+	switch s {
+	case Converged:
+		return "converged"
+	case IterationLimit:
+		return "iteration limit"
+	}
+	return "numerical failure"
+}
+
+// Settings of a barycenter computation. The zero value is the default.
+type Settings struct {
+	// Epsilon is the entropic regularisation in the cost's squared physical
+	// units. Zero means DefaultEpsilon of the grid.
+	Epsilon float64
+	// Weights of the inputs, non-negative; nil means equal. They are
+	// normalised to sum 1.
+	Weights []float64
+	// Tol is the target first-marginal violation; zero means 1e-6.
+	Tol float64
+	// MaxIter caps iterations (all epsilon stages together); zero means 10000.
+	MaxIter int
+	// Plain computes the plain entropic barycenter instead of the debiased one.
+	Plain bool
+	// Method chooses the iteration; the zero value is MethodAuto.
+	Method Method
+	// Relax is the over-relaxation factor omega in (0, 2) for the scaling
+	// updates (Thibault, Chizat, Dossal, Papadakis 2017): 1 is the plain
+	// projection; zero picks omega from the observed convergence rate.
+	Relax float64
+	// Workers bounds the goroutines; zero means GOMAXPROCS. Results are
+	// bit-identical for any value.
+	Workers int
+	// Progress, when set, is called after every iteration.
+	Progress func(iter int, residual float64)
+}
+
+// Result of a barycenter computation.
+type Result struct {
+	// Barycenter has unit mass and the grid of the inputs.
+	Barycenter *grid.Field
+	Status     Status
+	// Message explains a numerical failure or an iteration limit in words.
+	Message    string
+	Iterations int
+	// Residual is the final first-marginal violation; Residuals the history.
+	Residual  float64
+	Residuals []float64
+	Elapsed   time.Duration
+	Epsilon   float64
+	Debiased  bool
+	// Method is the iteration that produced the result.
+	Method Method
+	// Relax is the over-relaxation factor used at the end.
+	Relax float64
+	// Band is the kernel's half-width in pixels in the scaling iteration
+	// (the largest of the two axes), after any widening.
+	Band int
+	// Switched reports that MethodAuto moved to the log domain.
+	Switched bool
+}
+
+// DefaultEpsilon is the epsilon used when Settings leaves it zero: the square
+// of 1/25 of the grid's longer physical side, and at least one squared
+// pixel. It blurs by a few percent of the field, which debiasing removes.
+func DefaultEpsilon(rows, cols int, dx, dy float64) float64 {
+	side := math.Max(float64(cols)*dx, float64(rows)*dy) / 25
+	h := math.Max(dx, dy)
+	return math.Max(side*side, h*h)
+}
+
+// ErrInput reports an unusable set of inputs.
+var ErrInput = errors.New("sinkhorn: bad input")
+
+type problem struct {
+	rows, cols, n int
+	dx, dy        float64
+	a             [][]float64
+	w             []float64
+	eps, tol      float64
+	maxIter       int
+	debias        bool
+	workers       int
+	progress      func(int, float64)
+	relax         float64
+}
+
+func setup(fields []*grid.Field, s Settings) (*problem, error) {
+	if len(fields) == 0 {
+		return nil, fmt.Errorf("%w: no fields", ErrInput)
+	}
+	f0 := fields[0]
+	dx, dy := f0.PixelSize()
+	p := &problem{rows: f0.Rows, cols: f0.Cols, n: f0.Rows * f0.Cols, dx: dx, dy: dy,
+		eps: s.Epsilon, tol: s.Tol, maxIter: s.MaxIter, debias: !s.Plain,
+		workers: s.Workers, progress: s.Progress, relax: s.Relax}
+	if err := grid.SameShape(fields, nil); err != nil {
+		return nil, err
+	}
+	for i, f := range fields {
+		fx, fy := f.PixelSize()
+		if fx != dx || fy != dy {
+			return nil, fmt.Errorf("%w: field %d has pixel size %g x %g, field 1 has %g x %g", ErrInput, i+1, fx, fy, dx, dy)
+		}
+		if err := f.Validate(); err != nil {
+			return nil, fmt.Errorf("field %d: %w", i+1, err)
+		}
+		g, _ := grid.Normalize(f)
+		p.a = append(p.a, g.Data)
+	}
+	w, err := normWeights(s.Weights, len(fields))
+	if err != nil {
+		return nil, err
+	}
+	p.w = w
+	if p.eps == 0 {
+		p.eps = DefaultEpsilon(p.rows, p.cols, dx, dy)
+	}
+	if !(p.eps > 0) || math.IsInf(p.eps, 0) {
+		return nil, fmt.Errorf("%w: epsilon must be positive and finite, got %g", ErrInput, p.eps)
+	}
+	if p.tol == 0 {
+		p.tol = 1e-6
+	}
+	if !(p.tol > 0) {
+		return nil, fmt.Errorf("%w: tolerance must be positive, got %g", ErrInput, p.tol)
+	}
+	if p.maxIter == 0 {
+		p.maxIter = 10000
+	}
+	if p.maxIter < 0 {
+		return nil, fmt.Errorf("%w: iteration cap must be positive, got %d", ErrInput, p.maxIter)
+	}
+	if p.relax != 0 && !(p.relax > 0 && p.relax < 2) {
+		return nil, fmt.Errorf("%w: over-relaxation must lie in (0, 2), got %g", ErrInput, p.relax)
+	}
+	return p, nil
+}
+
+func normWeights(w []float64, k int) ([]float64, error) {
+	out := make([]float64, k)
+	if w == nil {
+		for i := range out {
+			out[i] = 1 / float64(k)
+		}
+		return out, nil
+	}
+	if len(w) != k {
+		return nil, fmt.Errorf("%w: %d weights for %d fields", ErrInput, len(w), k)
+	}
+	var s float64
+	for i, x := range w {
+		if !(x >= 0) || math.IsInf(x, 0) {
+			return nil, fmt.Errorf("%w: weight %d is %g, want a finite non-negative number", ErrInput, i+1, x)
+		}
+		s += x
+	}
+	if !(s > 0) {
+		return nil, fmt.Errorf("%w: weights sum to zero", ErrInput)
+	}
+	for i, x := range w {
+		out[i] = x / s
+	}
+	return out, nil
+}
+
+// Barycenter returns the entropic Wasserstein barycenter of the fields, which
+// must share shape and pixel size. With u_k, v_k the scalings of the plan
+// between input a_k and the barycenter b, and d the debiasing field (d = 1
+// when Plain), each iteration is
+//
+//	u_k = a_k / K v_k
+//	b   = d * prod_k (K u_k)^{w_k}
+//	v_k = b / K u_k
+//	d   = sqrt(d * b / K d)
+//
+// (Benamou et al. 2015; Janati et al. 2020 for d). After each iteration the
+// second marginals equal b exactly; the first-marginal violation, measured
+// with the K v_k that the next iteration needs anyway, is the stopping rule.
+func Barycenter(fields []*grid.Field, s Settings) (*Result, error) {
+	start := time.Now()
+	p, err := setup(fields, s)
+	if err != nil {
+		return nil, err
+	}
+	var res *Result
+	switch s.Method {
+	case MethodScaling:
+		res = p.scaling(false)
+	case MethodLog:
+		res = p.logDomain(nil)
+	default:
+		if p.needsLog() {
+			res = p.logDomain(nil)
+		} else {
+			res = p.scaling(true)
+			if res.Status == NumericalFailure {
+				hist := res.Residuals
+				res = p.logDomain(nil)
+				res.Switched = true
+				res.Residuals = append(hist, res.Residuals...)
+				res.Iterations += len(hist)
+			}
+		}
+	}
+	res.Elapsed = time.Since(start)
+	res.Epsilon = p.eps
+	res.Debiased = p.debias
+	if res.Barycenter != nil {
+		res.Barycenter.Dx, res.Barycenter.Dy, res.Barycenter.Unit = fields[0].Dx, fields[0].Dy, fields[0].Unit
+	}
+	return res, nil
+}
+
+// needsLog predicts scaling-domain failure: when the kernel between the
+// inputs' centroids is below 1e-200, the scalings must span more than the
+// float64 range (exp(-460)) to move that mass.
+func (p *problem) needsLog() bool {
+	var ms []grid.Moments
+	for _, a := range p.a {
+		ms = append(ms, grid.ComputeMoments(&grid.Field{Rows: p.rows, Cols: p.cols, Data: a, Dx: p.dx, Dy: p.dy}))
+	}
+	var worst float64
+	for i := range ms {
+		for j := range ms {
+			dx := ms[i].Mean[0] - ms[j].Mean[0]
+			dy := ms[i].Mean[1] - ms[j].Mean[1]
+			// Half the distance: the barycenter sits between them.
+			d2 := (dx*dx + dy*dy) / 4
+			sd := math.Sqrt(ms[i].Cov[0][0]+ms[i].Cov[1][1]) + math.Sqrt(ms[j].Cov[0][0]+ms[j].Cov[1][1])
+			d2 += sd * sd
+			worst = math.Max(worst, d2)
+		}
+	}
+	return worst/p.eps > 460
+}

@@ -1,0 +1,38 @@
+package sinkhorn
+
+import (
+	"math/rand/v2"
+	"testing"
+)
+
+func benchField(n int) []float64 {
+	rng := rand.New(rand.NewPCG(1, 2))
+	f := make([]float64, n*n)
+	for i := range f {
+		f[i] = rng.Float64()
+	}
+	return f
+}
+
+// BenchmarkKernelApply128 times one banded kernel application on 128 x 128
+// at epsilon 16 (the setting of the peer comparison).
+func BenchmarkKernelApply128(b *testing.B) {
+	k := NewKernel(128, 128, 1, 1, 16, 1e-12)
+	src := benchField(128)
+	dst, tmp := make([]float64, len(src)), make([]float64, len(src))
+	for b.Loop() {
+		k.Apply(dst, src, tmp)
+	}
+}
+
+func BenchmarkLogKernelApply128(b *testing.B) {
+	k := NewLogKernel(128, 128, 1, 1, 4)
+	src := benchField(128)
+	for i := range src {
+		src[i] *= 100
+	}
+	dst, tmp := make([]float64, len(src)), make([]float64, len(src))
+	for b.Loop() {
+		k.Apply(dst, src, tmp)
+	}
+}
