@@ -89,9 +89,12 @@ type Result struct {
 	// Residual is the final first-marginal violation; Residuals the history.
 	Residual  float64
 	Residuals []float64
-	Elapsed   time.Duration
-	Epsilon   float64
-	Debiased  bool
+	// DebiasResidual is |d K d - b|_1 for the debiased barycenter, the
+	// distance of the debiasing field from its fixed point (0 when Plain).
+	DebiasResidual float64
+	Elapsed        time.Duration
+	Epsilon        float64
+	Debiased       bool
 	// Method is the iteration that produced the result.
 	Method Method
 	// Relax is the over-relaxation factor used at the end.

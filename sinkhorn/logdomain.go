@@ -111,7 +111,7 @@ func (p *problem) logDomain(start *warm) *Result {
 		status := IterationLimit
 		for it := 0; it < cap; it++ {
 			st.step(rl.omega)
-			r := st.dres
+			r := 0.0
 			for k := range K {
 				r = math.Max(r, st.resid[k])
 			}
@@ -133,6 +133,7 @@ func (p *problem) logDomain(start *warm) *Result {
 			rl.update(stageHist)
 		}
 		res.Relax = rl.omega
+		res.DebiasResidual = st.dres
 		res.Iterations, res.Residual = total, stageHist[len(stageHist)-1]
 		if final {
 			res.Status = status

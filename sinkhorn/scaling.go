@@ -107,7 +107,7 @@ type scalingState struct {
 	p            *problem
 	k            *Kernel
 	u, v, kv, ku [][]float64
-	b, d, kd     []float64
+	b, d, kd, P  []float64   // P = prod_k (K u_k)^{w_k} when debiasing
 	tmp          [][]float64 // one per task
 	resid        []float64
 	full         [][]float64 // scratch for truncationError
@@ -151,7 +151,7 @@ func (p *problem) scaling(guard bool) *Result {
 	res := &Result{Method: MethodScaling}
 	for it := 1; it <= p.maxIter; it++ {
 		st.step(rl.omega)
-		r := st.dres
+		r := 0.0
 		for k := range K {
 			r = math.Max(r, st.resid[k])
 		}
@@ -204,6 +204,7 @@ func (p *problem) scaling(guard bool) *Result {
 		}
 	}
 	res.Relax = rl.omega
+	res.DebiasResidual = st.dres
 	res.Band = max(st.k.rx, st.k.ry)
 	res.Barycenter = p.output(st.b, false)
 	return res
@@ -247,19 +248,19 @@ func (st *scalingState) step(omega float64) {
 	grid.Parallel(K+1, p.workers, func(k int) {
 		if k == K {
 			if st.d != nil {
+				// d = sqrt(d b / K d). The violation |d K d - b|_1, zero at the
+				// fixed point, is reported beside the residual: it decays
+				// sublinearly when K d = P (b = d P) has no positive
+				// solution, so it cannot be part of the stopping rule.
 				st.k.Apply(st.kd, st.d, st.tmp[K])
-				// d is at its fixed point when d * K d = b; that violation
-				// is part of the stopping measure.
 				var r float64
 				for i, d := range st.d {
 					r += math.Abs(d*st.kd[i] - st.b[i])
-				}
-				st.dres = r
-				for i, d := range st.d {
 					if st.kd[i] > 0 {
 						st.d[i] = math.Sqrt(d * st.b[i] / st.kd[i])
 					}
 				}
+				st.dres = r
 			}
 			return
 		}

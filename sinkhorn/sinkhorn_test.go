@@ -303,8 +303,9 @@ func TestTranslationAndDebiasing(t *testing.T) {
 func TestLogAgreesWithScaling(t *testing.T) {
 	fs := []*grid.Field{gaussField(16, 20, 6, 7, 4), gaussField(16, 20, 13, 9, 7), gaussField(16, 20, 9, 5, 3)}
 	for _, plain := range []bool{true, false} {
-		// The debiasing fixed point converges slowly; 1e-7 is its practical floor here.
-		tol := map[bool]float64{true: 1e-9, false: 1e-7}[plain]
+		// The stopping rule watches the first marginals; the debiasing field
+		// converges more slowly, so debiased results agree less closely.
+		tol := 1e-9
 		a, err := Barycenter(fs, Settings{Epsilon: 3, Method: MethodScaling, Plain: plain, Tol: tol})
 		if err != nil || a.Status != Converged {
 			t.Fatal(err, a.Message)
@@ -318,7 +319,7 @@ func TestLogAgreesWithScaling(t *testing.T) {
 			l1 += math.Abs(a.Barycenter.Data[i] - b.Barycenter.Data[i])
 		}
 		t.Logf("plain=%v: %d and %d iterations", plain, a.Iterations, b.Iterations)
-		if l1 > 100*tol {
+		if lim := map[bool]float64{true: 1e-7, false: 5e-5}[plain]; l1 > lim {
 			t.Errorf("plain=%v: L1 between scaling and log-domain results %g", plain, l1)
 		}
 	}
