@@ -1,8 +1,265 @@
 package main
 
-import "github.com/urfave/cli/v2"
+import (
+	"encoding/json"
+	"fmt"
+	"os"
+	"path/filepath"
+	"strings"
+
+	"barygrid/gaussfit"
+	"barygrid/grid"
+	"barygrid/io/fieldfile"
+
+	"github.com/urfave/cli/v2"
+	"gonum.org/v1/gonum/mat"
+)
+
+// gaussianJSON is the interchange form of one Gaussian.
+type gaussianJSON struct {
+	Mean       []float64   `json:"mean"`
+	Covariance [][]float64 `json:"covariance"`
+	Weight     *float64    `json:"weight,omitempty"`
+}
+
+type gaussFile struct {
+	Gaussians []gaussianJSON `json:"gaussians"`
+}
+
+// gaussParams is written by --params.
+type gaussParams struct {
+	Mean       []float64   `json:"mean"`
+	Covariance [][]float64 `json:"covariance"`
+	Ellipse    *ellipseOut `json:"ellipse,omitempty"`
+	Solver     string      `json:"solver"`
+	Iterations int         `json:"iterations"`
+	GradNorm   float64     `json:"gradient_norm"`
+	Converged  bool        `json:"converged"`
+	Objective  []float64   `json:"objective_history"`
+	Seconds    float64     `json:"seconds"`
+	Inputs     int         `json:"inputs"`
+	MeanMass   float64     `json:"mean_mass,omitempty"`
+	Unit       string      `json:"unit,omitempty"`
+}
+
+type ellipseOut struct {
+	Major, Minor, AngleDeg float64
+}
+
+func readGaussians(path string) ([]gaussfit.Gaussian, []float64, error) {
+	data, err := os.ReadFile(path)
+	if err != nil {
+		return nil, nil, fmt.Errorf("%s: %v", path, unwrapErr(err))
+	}
+	var gf gaussFile
+	dec := json.NewDecoder(strings.NewReader(string(data)))
+	dec.DisallowUnknownFields()
+	if err := dec.Decode(&gf); err != nil {
+		return nil, nil, fmt.Errorf("%s: not a Gaussians file: %v", path, err)
+	}
+	if len(gf.Gaussians) == 0 {
+		return nil, nil, fmt.Errorf("%s: no Gaussians", path)
+	}
+	d := len(gf.Gaussians[0].Mean)
+	var gs []gaussfit.Gaussian
+	var ws []float64
+	for i, g := range gf.Gaussians {
+		if len(g.Mean) != d || d == 0 {
+			return nil, nil, fmt.Errorf("%s: Gaussian %d has a mean of length %d, want %d", path, i+1, len(g.Mean), d)
+		}
+		cov, err := gaussfit.CheckCov(g.Covariance, d)
+		if err != nil {
+			return nil, nil, fmt.Errorf("%s: Gaussian %d: %w", path, i+1, err)
+		}
+		w := 1.0
+		if g.Weight != nil {
+			w = *g.Weight
+			if !(w >= 0) {
+				return nil, nil, fmt.Errorf("%s: Gaussian %d has weight %g", path, i+1, w)
+			}
+		}
+		gs = append(gs, gaussfit.Gaussian{Mean: g.Mean, Cov: cov})
+		ws = append(ws, w)
+	}
+	return gs, ws, nil
+}
+
+func unwrapErr(err error) error {
+	if pe, ok := err.(*os.PathError); ok {
+		return pe.Err
+	}
+	return err
+}
 
 func gaussCommand() *cli.Command {
-	return withUsage(&cli.Command{Name: "gauss", Usage: "Gaussian barycenter (Bures-Wasserstein)", Hidden: true,
-		Action: func(c *cli.Context) error { return usagef("gauss: not built yet") }})
+	flags := append(inputFlags(), outputFlags()...)
+	flags = append(flags,
+		&cli.StringFlag{Name: "solver", Value: "fixed-point", Usage: "fixed-point, gradient or stochastic"},
+		&cli.Uint64Flag{Name: "seed", Value: 1, Usage: "random seed of the stochastic solver"},
+		&cli.StringFlag{Name: "weights", Usage: "comma-separated weights, one per input"},
+		&cli.Float64Flag{Name: "tol", Value: 1e-10, Usage: "stop when the gradient norm is below this"},
+		&cli.IntFlag{Name: "max-iter", Usage: "iteration cap (stochastic: passes over the inputs); default 1000, or 10 passes"},
+		&cli.Float64Flag{Name: "step", Usage: "gradient step size (default 1; stochastic: step/sqrt(t) instead of 1/(t+1))"},
+		&cli.IntFlag{Name: "batch", Value: 1, Usage: "stochastic minibatch size"},
+		&cli.BoolFlag{Name: "sheppard", Usage: "subtract the pixel-grouping variance dx^2/12 from each fit"},
+		&cli.StringFlag{Name: "out", Usage: "render the barycenter Gaussian on the inputs' grid to `FILE`"},
+		&cli.StringFlag{Name: "params", Usage: "write the barycenter parameters and solver figures to `FILE.json`"},
+	)
+	return withUsage(&cli.Command{
+		Name:      "gauss",
+		Usage:     "fit each field with a Gaussian and average the fits (Bures-Wasserstein barycenter)",
+		ArgsUsage: "FILE... (fields, or .json files of Gaussians)",
+		Flags:     flags,
+		Action: func(c *cli.Context) error {
+			files := c.Args().Slice()
+			if len(files) == 0 {
+				return usagef("gauss: no input files")
+			}
+			out, params := c.String("out"), c.String("params")
+			if err := checkOutputs(c.Bool("force"), out, params); err != nil {
+				return err
+			}
+			s := gaussfit.Settings{Tol: c.Float64("tol"), MaxIter: c.Int("max-iter"), Step: c.Float64("step"),
+				Batch: c.Int("batch"), Seed: c.Uint64("seed")}
+			switch c.String("solver") {
+			case "fixed-point":
+				s.Solver = gaussfit.FixedPoint
+			case "gradient":
+				s.Solver = gaussfit.Gradient
+			case "stochastic":
+				s.Solver = gaussfit.Stochastic
+			default:
+				return usagef("--solver: want fixed-point, gradient or stochastic, got %q", c.String("solver"))
+			}
+			var (
+				gs     []gaussfit.Gaussian
+				ws     []float64
+				ref    *grid.Field
+				mass   float64
+				nfld   int
+				fields []string
+			)
+			for _, p := range files {
+				if strings.EqualFold(filepath.Ext(p), ".json") {
+					g, w, err := readGaussians(p)
+					if err != nil {
+						return err
+					}
+					gs, ws = append(gs, g...), append(ws, w...)
+				} else {
+					fields = append(fields, p)
+				}
+			}
+			if len(fields) > 0 {
+				fs, err := loadFieldsParallel(c, fields)
+				if err != nil {
+					return err
+				}
+				for i, f := range fs {
+					g, m, err := gaussfit.Fit(f, gaussfit.FitSettings{Sheppard: c.Bool("sheppard")})
+					if err != nil {
+						return fmt.Errorf("%s: %w", fields[i], err)
+					}
+					gs, ws = append(gs, g), append(ws, 1)
+					mass += m
+					nfld++
+				}
+				ref = fs[0]
+			}
+			for i, g := range gs {
+				if len(g.Mean) != len(gs[0].Mean) {
+					return fmt.Errorf("gauss: input %d has dimension %d, input 1 has %d", i+1, len(g.Mean), len(gs[0].Mean))
+				}
+			}
+			if v := c.String("weights"); v != "" {
+				w, err := parseWeights(v, len(gs))
+				if err != nil {
+					return err
+				}
+				ws = w
+			}
+			s.Weights = ws
+			r, err := gaussfit.Barycenter(gs, s)
+			if err != nil {
+				return err
+			}
+			b := r.Barycenter
+			p := gaussParams{Mean: b.Mean, Covariance: rowsOf(b.Cov), Solver: s.Solver.String(), Iterations: r.Iterations,
+				GradNorm: r.GradNorm, Converged: r.Converged, Objective: r.Objective, Seconds: r.Elapsed.Seconds(), Inputs: len(gs)}
+			if len(b.Mean) == 2 {
+				e := gaussfit.EllipseOf(b)
+				p.Ellipse = &ellipseOut{Major: e.Major, Minor: e.Minor, AngleDeg: e.Angle * 180 / 3.141592653589793}
+			}
+			if ref != nil {
+				p.MeanMass, p.Unit = mass/float64(nfld), ref.Unit
+			}
+			if out != "" {
+				if ref == nil || len(b.Mean) != 2 {
+					return usagef("--out needs field inputs (2-D) to know the grid")
+				}
+				dx, dy := ref.PixelSize()
+				f := gaussfit.Render(b, ref.Rows, ref.Cols, dx, dy, p.MeanMass)
+				f.Unit = ref.Unit
+				if _, err := fieldfile.Save(out, f, saveSettings(c)); err != nil {
+					return err
+				}
+			}
+			if params != "" {
+				if err := writeJSON(params, c.Bool("force"), p); err != nil {
+					return err
+				}
+			}
+			fmt.Printf("Gaussian barycenter of %d inputs (%s): %d iterations, gradient norm %.2g\n", len(gs), p.Solver, r.Iterations, r.GradNorm)
+			fmt.Printf("  mean %s\n  covariance %s\n", fmtVec(b.Mean), fmtMat(p.Covariance))
+			return nil
+		},
+	})
+}
+
+func rowsOf(s *mat.SymDense) [][]float64 {
+	n := s.SymmetricDim()
+	out := make([][]float64, n)
+	for i := range out {
+		out[i] = make([]float64, n)
+		for j := range out[i] {
+			out[i][j] = s.At(i, j)
+		}
+	}
+	return out
+}
+
+func fmtVec(v []float64) string {
+	parts := make([]string, len(v))
+	for i, x := range v {
+		parts[i] = fmt.Sprintf("%.6g", x)
+	}
+	return "[" + strings.Join(parts, ", ") + "]"
+}
+
+func fmtMat(m [][]float64) string {
+	parts := make([]string, len(m))
+	for i, r := range m {
+		parts[i] = fmtVec(r)
+	}
+	return "[" + strings.Join(parts, ", ") + "]"
+}
+
+// loadFieldsParallel decodes files on all CPUs (decoding dominates fits of
+// many fields); shapes may differ, since each field is fitted on its own.
+func loadFieldsParallel(c *cli.Context, files []string) ([]*grid.Field, error) {
+	s, err := loadSettings(c)
+	if err != nil {
+		return nil, err
+	}
+	fs := make([]*grid.Field, len(files))
+	errs := make([]error, len(files))
+	grid.Parallel(len(files), 0, func(i int) {
+		fs[i], errs[i] = fieldfile.Load(files[i], s)
+	})
+	for _, e := range errs {
+		if e != nil {
+			return nil, e
+		}
+	}
+	return fs, nil
 }
