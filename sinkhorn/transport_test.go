@@ -37,7 +37,7 @@ func TestDivergenceAxioms(t *testing.T) {
 	for r := 0; r < 24; r++ {
 		for c := 0; c < 28; c++ {
 			x, y := float64(c)-17, float64(r)-12
-			b.Set(r, c, math.Exp(-(x*x/30+y*y/6)))
+			b.Set(r, c, math.Exp(-(x*x/30 + y*y/6)))
 		}
 	}
 	s := Settings{Epsilon: 1.5, Tol: 1e-10}
