@@ -68,9 +68,11 @@ func newApp() *cli.App {
 			gaussCommand(),
 			demoCommand(),
 		},
-		CommandNotFound: func(c *cli.Context, name string) {
-			fmt.Fprintf(os.Stderr, "barygrid: no command %q (see barygrid --help)\n", name)
-			os.Exit(2)
+		Action: func(c *cli.Context) error {
+			if c.NArg() > 0 {
+				return usagef("no command %q (see barygrid --help)", c.Args().First())
+			}
+			return cli.ShowAppHelp(c)
 		},
 	}
 }
