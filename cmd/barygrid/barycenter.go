@@ -96,6 +96,19 @@ type baryReport struct {
 	Centroid   [2]float64    `json:"output_centroid"`
 	Covariance [2][2]float64 `json:"output_covariance"`
 	Residuals  []float64     `json:"residual_history"`
+	DebiasViol float64       `json:"debias_violation,omitempty"`
+	Ranking    []rankEntry   `json:"ranking,omitempty"`
+}
+
+func printRanking(ranks []rankEntry) {
+	fmt.Println("divergence to the barycenter (largest first; outlier: above median + 3 scaled MAD):")
+	for _, e := range ranks {
+		flag := ""
+		if e.Outlier {
+			flag = "  OUTLIER"
+		}
+		fmt.Printf("  %12.6g  z=%6.2f  %s%s\n", e.Divergence, e.Score, e.File, flag)
+	}
 }
 
 func newBaryReport(files []string, fs []*grid.Field, weights []float64, s sinkhorn.Settings, r *sinkhorn.Result) baryReport {
@@ -103,7 +116,8 @@ func newBaryReport(files []string, fs []*grid.Field, weights []float64, s sinkho
 	rep := baryReport{Command: "barycenter", Iterations: r.Iterations, Residual: r.Residual, Seconds: r.Elapsed.Seconds(),
 		Epsilon: r.Epsilon, EpsilonSet: s.Epsilon != 0, Converged: r.Status == sinkhorn.Converged, Status: r.Status.String(),
 		Message: r.Message, Debiased: r.Debiased, Method: r.Method.String(), Relax: r.Relax, Band: r.Band, Tol: s.Tol,
-		PixelSize: [2]float64{dx, dy}, Unit: fs[0].Unit, Shape: [2]int{fs[0].Rows, fs[0].Cols}, Residuals: r.Residuals}
+		PixelSize: [2]float64{dx, dy}, Unit: fs[0].Unit, Shape: [2]int{fs[0].Rows, fs[0].Cols}, Residuals: r.Residuals,
+		DebiasViol: r.DebiasResidual}
 	if rep.Tol == 0 {
 		rep.Tol = 1e-6
 	}
@@ -137,6 +151,7 @@ func barycenterCommand() *cli.Command {
 		&cli.StringFlag{Name: "weights", Usage: "comma-separated weights `w1,w2,...`, one per input (normalised to sum 1)"},
 		&cli.StringFlag{Name: "out", Usage: "write the barycenter to `FILE` (.npy, .csv, .png, .tif)"},
 		&cli.StringFlag{Name: "report", Usage: "write a JSON report to `FILE.json`"},
+		&cli.BoolFlag{Name: "rank", Usage: "rank the inputs by Sinkhorn divergence to the barycenter and flag outliers (median + 3 scaled MAD)"},
 	)
 	return withUsage(&cli.Command{
 		Name:      "barycenter",
@@ -168,6 +183,14 @@ func barycenterCommand() *cli.Command {
 				return err
 			}
 			rep := newBaryReport(files, fs, s.Weights, s, r)
+			if c.Bool("rank") && r.Status == sinkhorn.Converged {
+				ranks, err := rankInputs(files, fs, r.Barycenter, s)
+				if err != nil {
+					return err
+				}
+				rep.Ranking = ranks
+				defer printRanking(ranks)
+			}
 			if out != "" {
 				sc, err := fieldfile.Save(out, r.Barycenter, saveSettings(c))
 				if err != nil {

@@ -66,6 +66,8 @@ func newApp() *cli.App {
 			inspectCommand(),
 			barycenterCommand(),
 			gaussCommand(),
+			morphCommand(),
+			distanceCommand(),
 			demoCommand(),
 		},
 		Action: func(c *cli.Context) error {

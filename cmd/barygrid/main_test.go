@@ -1,10 +1,13 @@
 package main
 
 import (
+	"encoding/csv"
 	"encoding/json"
+	"fmt"
 	"math"
 	"os"
 	"path/filepath"
+	"strconv"
 	"strings"
 	"testing"
 
@@ -169,4 +172,106 @@ func TestGaussCommandJSONInput(t *testing.T) {
 			t.Errorf("axis %d: var %g mean %g, want %g and 1.5", i, p.Covariance[i][i], p.Mean[i], s*s)
 		}
 	}
+}
+
+// The midpoint of the morph between a blob and its translate is the blob
+// moved halfway (McCann's displacement interpolation), not a cross-fade:
+// one peak at the midpoint with the blob's height, nothing left at the ends.
+func TestMorphMidpointMoves(t *testing.T) {
+	dir := t.TempDir()
+	a, b := filepath.Join(dir, "a.npy"), filepath.Join(dir, "b.npy")
+	fieldfile.Save(a, blob(20, 40, 8, 10, 4), fieldfile.SaveSettings{})
+	fieldfile.Save(b, blob(20, 40, 30, 10, 4), fieldfile.SaveSettings{})
+	frames := filepath.Join(dir, "frames")
+	code, _, errs := runCLI(t, "morph", "--epsilon", "1", "--frames", "3", "--format", "npy", "--out", frames, "--gif", filepath.Join(dir, "m.gif"), a, b)
+	if code != 0 {
+		t.Fatalf("exit %d: %s", code, errs)
+	}
+	mid, err := fieldfile.Load(filepath.Join(frames, "frame_001.npy"), fieldfile.LoadSettings{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	m := grid.ComputeMoments(mid)
+	if math.Abs(m.Mean[0]-19) > 1e-3 || math.Abs(m.Cov[0][0]-4) > 0.1 {
+		t.Errorf("midpoint centroid %v variance %v, want x = 19 and variance 4", m.Mean, m.Cov)
+	}
+	ref, _ := grid.Normalize(blob(20, 40, 8, 10, 4))
+	_, peak := ref.MinMax()
+	if _, hi := mid.MinMax(); math.Abs(hi-peak) > 0.05*peak {
+		t.Errorf("midpoint peak %g, want the blob's %g (a cross-fade would halve it)", hi, peak)
+	}
+	if v := mid.At(10, 8); v > 1e-3*peak {
+		t.Errorf("mass left at the start position: %g", v)
+	}
+}
+
+func TestDistanceAndMatrix(t *testing.T) {
+	dir := t.TempDir()
+	files := writeBlobs(t, dir)
+	code, out, errs := runCLI(t, "distance", "--epsilon", "1", files[0], files[1])
+	if code != 0 {
+		t.Fatalf("exit %d: %s", code, errs)
+	}
+	// Translates by (6, 2) px: |tau|^2 = 40 (Sinkhorn divergence of a
+	// translate, see sinkhorn.TestDivergenceOfTranslate).
+	d, err := strconv.ParseFloat(strings.Fields(out)[0], 64)
+	if err != nil || math.Abs(d-40) > 0.05 {
+		t.Errorf("divergence %q, want 40", out)
+	}
+	csvPath := filepath.Join(dir, "m.csv")
+	code, _, errs = runCLI(t, append([]string{"distance", "--gauss", "--matrix", "--out", csvPath}, files...)...)
+	if code != 0 {
+		t.Fatalf("exit %d: %s", code, errs)
+	}
+	recs, err := csv.NewReader(strings.NewReader(readFile(t, csvPath))).ReadAll()
+	if err != nil || len(recs) != 4 || recs[0][0] != "file" {
+		t.Fatalf("matrix %v %v", err, recs)
+	}
+	for i := 1; i < 4; i++ {
+		if recs[i][i] != "0" {
+			t.Errorf("diagonal %q", recs[i][i])
+		}
+		for j := 1; j < 4; j++ {
+			if recs[i][j] != recs[j][i] {
+				t.Errorf("not symmetric at %d,%d", i, j)
+			}
+		}
+	}
+}
+
+func TestRankFlagsOutlier(t *testing.T) {
+	dir := t.TempDir()
+	var files []string
+	for i := 0; i < 7; i++ {
+		p := filepath.Join(dir, fmt.Sprintf("c%d.npy", i))
+		mx := 12 + 0.5*float64(i%3)
+		if i == 6 {
+			mx = 26 // far from the others
+		}
+		fieldfile.Save(p, blob(24, 32, mx, 12, 4), fieldfile.SaveSettings{})
+		files = append(files, p)
+	}
+	rep := filepath.Join(dir, "r.json")
+	code, out, errs := runCLI(t, append([]string{"barycenter", "--epsilon", "2", "--rank", "--report", rep}, files...)...)
+	if code != 0 {
+		t.Fatalf("exit %d: %s", code, errs)
+	}
+	lines := strings.Split(out, "\n")
+	var flagged []string
+	for _, l := range lines {
+		if strings.Contains(l, "OUTLIER") {
+			flagged = append(flagged, l)
+		}
+	}
+	if len(flagged) != 1 || !strings.Contains(flagged[0], "c6.npy") {
+		t.Errorf("flagged %v, want only c6.npy\n%s", flagged, out)
+	}
+}
+
+func readFile(t *testing.T, p string) string {
+	b, err := os.ReadFile(p)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return string(b)
 }
