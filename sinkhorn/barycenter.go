@@ -74,6 +74,17 @@ type Settings struct {
 	// Workers bounds the goroutines; zero means GOMAXPROCS. Results are
 	// bit-identical for any value.
 	Workers int
+	// Unbalanced, when positive, relaxes the marginal constraints to
+	// penalties Unbalanced * KL (Chizat, Peyre, Schmitzer, Vialard, Math.
+	// Comp. 2018), in the cost's squared units: inputs keep their masses and
+	// the barycenter's mass follows from the formulation. The larger, the
+	// closer to the balanced problem. Debiasing is not defined for it and is
+	// switched off.
+	Unbalanced float64
+	// Mask, when set (len rows*cols), confines the barycenter to the true
+	// pixels. Input mass outside it is an error unless DropOutside.
+	Mask        []bool
+	DropOutside bool
 	// Progress, when set, is called after every iteration.
 	Progress func(iter int, residual float64)
 }
@@ -102,6 +113,13 @@ type Result struct {
 	// Band is the kernel's half-width in pixels in the scaling iteration
 	// (the largest of the two axes), after any widening.
 	Band int
+	// InputMasses are the inputs' masses as given; Dropped the mass of each
+	// input removed outside the mask (DropOutside).
+	InputMasses, Dropped []float64
+	// Mass is the barycenter's mass: 1 for balanced problems; for
+	// unbalanced ones the mass the formulation gives, in the units of the
+	// inputs (Barycenter itself is then scaled to that mass).
+	Mass float64
 	// Switched reports that MethodAuto moved to the log domain.
 	Switched bool
 }
@@ -129,6 +147,12 @@ type problem struct {
 	workers       int
 	progress      func(int, float64)
 	relax         float64
+	lambda        float64 // rho / (rho + eps); 1 when balanced
+	rawMass       float64 // mass of b before normalisation
+	refMass       float64 // total mass Z of the kernel (unbalanced only)
+	mask          []bool
+	masses        []float64
+	dropped       []float64
 }
 
 func setup(fields []*grid.Field, s Settings) (*problem, error) {
@@ -151,8 +175,48 @@ func setup(fields []*grid.Field, s Settings) (*problem, error) {
 		if err := f.Validate(); err != nil {
 			return nil, fmt.Errorf("field %d: %w", i+1, err)
 		}
-		g, _ := grid.Normalize(f)
-		p.a = append(p.a, g.Data)
+		data := f.Data
+		if s.Mask != nil {
+			if len(s.Mask) != p.n {
+				return nil, fmt.Errorf("%w: mask has %d pixels, fields have %d", ErrInput, len(s.Mask), p.n)
+			}
+			var out float64
+			first := -1
+			for j, v := range data {
+				if !s.Mask[j] && v > 0 {
+					out += v
+					if first < 0 {
+						first = j
+					}
+				}
+			}
+			if out > 0 && !s.DropOutside {
+				return nil, fmt.Errorf("%w: field %d has mass %.4g outside the mask (first at row %d, column %d); drop it explicitly if that is intended",
+					ErrInput, i+1, out, first/p.cols, first%p.cols)
+			}
+			data = append([]float64(nil), data...)
+			for j := range data {
+				if !s.Mask[j] {
+					data[j] = 0
+				}
+			}
+			p.dropped = append(p.dropped, out)
+		}
+		m := grid.Sum(data)
+		if !(m > 0) {
+			return nil, fmt.Errorf("%w: field %d has no mass inside the mask", ErrInput, i+1)
+		}
+		p.masses = append(p.masses, grid.Sum(f.Data))
+		a := make([]float64, len(data))
+		for j, v := range data {
+			a[j] = v / m
+		}
+		p.a = append(p.a, a)
+	}
+	p.mask = s.Mask
+	p.lambda = 1
+	if s.Unbalanced < 0 || math.IsNaN(s.Unbalanced) {
+		return nil, fmt.Errorf("%w: unbalanced penalty must be positive, got %g", ErrInput, s.Unbalanced)
 	}
 	w, err := normWeights(s.Weights, len(fields))
 	if err != nil {
@@ -164,6 +228,25 @@ func setup(fields []*grid.Field, s Settings) (*problem, error) {
 	}
 	if !(p.eps > 0) || math.IsInf(p.eps, 0) {
 		return nil, fmt.Errorf("%w: epsilon must be positive and finite, got %g", ErrInput, p.eps)
+	}
+	if s.Unbalanced > 0 && !math.IsInf(s.Unbalanced, 1) {
+		p.lambda = s.Unbalanced / (s.Unbalanced + p.eps)
+		p.debias = false
+		// Unbalanced inputs keep their masses relative to the first:
+		// a_k = m_k / m_1 * shape_k. The entropic reference is the kernel
+		// divided by its total mass Z (a unit-mass reference, as the product
+		// of two unit-mass measures would be); without that the counting
+		// measure's mass, about N * pi * eps / (dx dy), would swamp the unit
+		// masses of the inputs and the barycenter's mass would follow the
+		// grid size. Dividing K by Z is solving with inputs Z a_k and
+		// dividing b by Z afterwards (the updates are homogeneous in that way).
+		p.refMass = kernelMass(p.cols, p.dx, p.eps) * kernelMass(p.rows, p.dy, p.eps)
+		for k := range p.a {
+			sc := p.refMass * (p.masses[k] - dropped(p.dropped, k)) / (p.masses[0] - dropped(p.dropped, 0))
+			for j := range p.a[k] {
+				p.a[k][j] *= sc
+			}
+		}
 	}
 	if p.tol == 0 {
 		p.tol = 1e-6
@@ -181,6 +264,30 @@ func setup(fields []*grid.Field, s Settings) (*problem, error) {
 		return nil, fmt.Errorf("%w: over-relaxation must lie in (0, 2), got %g", ErrInput, p.relax)
 	}
 	return p, nil
+}
+
+// kernelMass returns sum_{i,j} exp(-h^2 (i-j)^2 / eps) over an n-point axis.
+func kernelMass(n int, h, eps float64) float64 {
+	var s float64
+	for t := -(n - 1); t < n; t++ {
+		d := h * float64(t)
+		s += float64(n-abs(t)) * math.Exp(-d*d/eps)
+	}
+	return s
+}
+
+func abs(t int) int {
+	if t < 0 {
+		return -t
+	}
+	return t
+}
+
+func dropped(d []float64, k int) float64 {
+	if d == nil {
+		return 0
+	}
+	return d[k]
 }
 
 func normWeights(w []float64, k int) ([]float64, error) {
@@ -252,6 +359,14 @@ func Barycenter(fields []*grid.Field, s Settings) (*Result, error) {
 	res.Elapsed = time.Since(start)
 	res.Epsilon = p.eps
 	res.Debiased = p.debias
+	res.InputMasses, res.Dropped = p.masses, p.dropped
+	res.Mass = 1
+	if p.lambda != 1 && res.Barycenter != nil {
+		// The iteration ran with inputs scaled by 1/m_1; its b has the
+		// mass the formulation gives in those units.
+		res.Mass = p.rawMass / p.refMass * (p.masses[0] - dropped(p.dropped, 0))
+		res.Barycenter = grid.Scale(res.Barycenter, res.Mass)
+	}
 	if res.Barycenter != nil {
 		res.Barycenter.Dx, res.Barycenter.Dy, res.Barycenter.Unit = fields[0].Dx, fields[0].Dy, fields[0].Unit
 	}

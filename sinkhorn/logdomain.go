@@ -160,7 +160,7 @@ func (st *logState) step(omega float64) {
 	grid.Parallel(K, p.workers, func(k int) {
 		F, la, lkv := st.F[k], st.la[k], st.LKv[k]
 		for i := range F {
-			t := la[i] - lkv[i]
+			t := p.lambda * (la[i] - lkv[i])
 			if la[i] == ninf {
 				t = ninf
 			}
@@ -175,11 +175,24 @@ func (st *logState) step(omega float64) {
 	nc := (p.n + chunk - 1) / chunk
 	grid.Parallel(nc, p.workers, func(c int) {
 		for i := c * chunk; i < min((c+1)*chunk, p.n); i++ {
+			if p.mask != nil && !p.mask[i] {
+				st.lb[i] = ninf
+				continue
+			}
 			var s float64
-			for k := range K {
-				if p.w[k] != 0 {
-					s += p.w[k] * st.LKu[k][i]
+			if p.lambda == 1 {
+				for k := range K {
+					if p.w[k] != 0 {
+						s += p.w[k] * st.LKu[k][i]
+					}
 				}
+			} else {
+				// log b = log(sum_k w_k exp((1-lambda) LKu_k)) / (1-lambda).
+				l := make([]float64, K)
+				for k := range K {
+					l[k] = st.LKu[k][i]
+				}
+				s = powerMeanLog(l, p.w, 1-p.lambda)
 			}
 			if st.ld != nil {
 				s += st.ld[i]
@@ -213,7 +226,7 @@ func (st *logState) step(omega float64) {
 		}
 		G, lku := st.G[k], st.LKu[k]
 		for i := range G {
-			t := st.lb[i] - lku[i]
+			t := p.lambda * (st.lb[i] - lku[i])
 			if st.lb[i] == ninf || lku[i] == ninf {
 				t = ninf
 			}
@@ -230,10 +243,19 @@ func (st *logState) step(omega float64) {
 			if st.F[k][i] != ninf {
 				m = math.Exp(st.F[k][i] + lkv[i])
 			}
+			if p.lambda != 1 && a > 0 {
+				a = math.Exp(p.lambda*math.Log(a) + (1-p.lambda)*lkv[i])
+			}
 			y := math.Abs(m-a) - c
 			t := r + y
 			c = (t - r) - y
 			r = t
+		}
+		if p.lambda != 1 {
+			// The unbalanced mass mode contracts by about lambda per
+			// iteration, so the violation understates the distance to the
+			// fixed point by 1/(1 - lambda).
+			r /= 1 - p.lambda
 		}
 		st.resid[k] = r
 	})

@@ -219,6 +219,9 @@ func (st *scalingState) step(omega float64) {
 			t := 0.0
 			if a[i] > 0 {
 				t = a[i] / kv[i]
+				if p.lambda != 1 {
+					t = math.Pow(t, p.lambda)
+				}
 			}
 			u[i] = relax(u[i], t, omega)
 		}
@@ -231,14 +234,27 @@ func (st *scalingState) step(omega float64) {
 	grid.Parallel(nc, p.workers, func(c int) {
 		lo, hi := c*chunk, min((c+1)*chunk, p.n)
 		for i := lo; i < hi; i++ {
-			var s float64
-			for k := range K {
-				if p.w[k] == 0 {
-					continue
-				}
-				s += p.w[k] * math.Log(st.ku[k][i])
+			if p.mask != nil && !p.mask[i] {
+				st.b[i] = 0
+				continue
 			}
-			b := math.Exp(s)
+			var b float64
+			if p.lambda == 1 {
+				var s float64
+				for k := range K {
+					if p.w[k] != 0 {
+						s += p.w[k] * math.Log(st.ku[k][i])
+					}
+				}
+				b = math.Exp(s)
+			} else {
+				// Unbalanced: b = (sum_k w_k (K u_k)^{1-lambda})^{1/(1-lambda)}.
+				l := make([]float64, 0, 8)
+				for k := range K {
+					l = append(l, math.Log(st.ku[k][i]))
+				}
+				b = math.Exp(powerMeanLog(l, p.w, 1-p.lambda))
+			}
 			if st.d != nil {
 				b *= st.d[i]
 			}
@@ -269,6 +285,9 @@ func (st *scalingState) step(omega float64) {
 			t := 0.0
 			if ku[i] > 0 {
 				t = st.b[i] / ku[i]
+				if p.lambda != 1 {
+					t = math.Pow(t, p.lambda)
+				}
 			}
 			v[i] = relax(v[i], t, omega)
 		}
@@ -277,10 +296,22 @@ func (st *scalingState) step(omega float64) {
 		var r, c float64
 		for i, a := range p.a[k] {
 			// Kahan sum: the residual is a small difference of unit masses.
-			y := math.Abs(st.u[k][i]*kv[i]-a) - c
+			m := st.u[k][i] * kv[i]
+			if p.lambda != 1 && a > 0 {
+				// Unbalanced: violation of u = (a / K v)^lambda, that is
+				// u K v = a^lambda (K v)^(1 - lambda).
+				a = math.Pow(a, p.lambda) * math.Pow(kv[i], 1-p.lambda)
+			}
+			y := math.Abs(m-a) - c
 			t := r + y
 			c = (t - r) - y
 			r = t
+		}
+		if p.lambda != 1 {
+			// The unbalanced mass mode contracts by about lambda per
+			// iteration, so the violation understates the distance to the
+			// fixed point by 1/(1 - lambda).
+			r /= 1 - p.lambda
 		}
 		st.resid[k] = r
 	})
@@ -371,7 +402,8 @@ func (st *scalingState) widen() {
 	grid.Parallel(len(p.a), p.workers, func(k int) { st.k.Apply(st.kv[k], st.v[k], st.tmp[k]) })
 }
 
-// output returns b normalised to unit mass as a field.
+// output returns b normalised to unit mass as a field, and records b's own
+// mass (the unbalanced barycenter's mass) in p.rawMass.
 func (p *problem) output(b []float64, isLog bool) *grid.Field {
 	f := &grid.Field{Rows: p.rows, Cols: p.cols, Data: make([]float64, p.n)}
 	if isLog {
@@ -382,11 +414,36 @@ func (p *problem) output(b []float64, isLog bool) *grid.Field {
 		for i, x := range b {
 			f.Data[i] = math.Exp(x - m)
 		}
+		p.rawMass = math.Exp(m) * grid.Sum(f.Data)
 	} else {
 		copy(f.Data, b)
+		p.rawMass = grid.Sum(f.Data)
 	}
 	if g, err := grid.Normalize(f); err == nil {
 		return g
 	}
 	return f
+}
+
+// powerMeanLog returns log((sum_k w_k exp(q l_k))^(1/q)), the log of the
+// weighted power mean of order q of exp(l_k) (weights sum to one), written
+// with log1p and expm1 around the largest term so that it stays accurate as
+// q -> 0, where it tends to the geometric mean sum_k w_k l_k.
+func powerMeanLog(l, w []float64, q float64) float64 {
+	m := math.Inf(-1)
+	for k, x := range l {
+		if w[k] != 0 {
+			m = math.Max(m, x)
+		}
+	}
+	if math.IsInf(m, -1) {
+		return m
+	}
+	var s float64
+	for k, x := range l {
+		if w[k] != 0 {
+			s += w[k] * math.Expm1(q*(x-m))
+		}
+	}
+	return m + math.Log1p(s)/q
 }

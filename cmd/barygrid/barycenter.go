@@ -22,6 +22,9 @@ func solverFlags() []cli.Flag {
 		&cli.BoolFlag{Name: "debias", Value: true, Usage: "debiased barycenter (--debias=false for the plain entropic one)"},
 		&cli.StringFlag{Name: "method", Value: "auto", Usage: "iteration: auto, scaling or log"},
 		&cli.IntFlag{Name: "threads", Usage: "worker goroutines (default: all CPUs; results do not depend on it)"},
+		&cli.Float64Flag{Name: "unbalanced", Usage: "KL-relaxed marginals with penalty `RHO` (squared physical units): inputs keep their masses (plain, not debiased)"},
+		&cli.StringFlag{Name: "mask", Usage: "confine the barycenter to the non-zero pixels of `FILE`"},
+		&cli.BoolFlag{Name: "drop-outside", Usage: "drop input mass outside the mask (reported) instead of failing"},
 		&cli.Float64Flag{Name: "relax", Usage: "over-relaxation factor in (0, 2); 1 is the plain iteration (default: chosen from the observed convergence rate)"},
 	}
 }
@@ -29,6 +32,31 @@ func solverFlags() []cli.Flag {
 func solverSettings(c *cli.Context) (sinkhorn.Settings, error) {
 	s := sinkhorn.Settings{Epsilon: c.Float64("epsilon"), Tol: c.Float64("tol"), MaxIter: c.Int("max-iter"),
 		Plain: !c.Bool("debias"), Workers: c.Int("threads"), Relax: c.Float64("relax")}
+	s.Unbalanced = c.Float64("unbalanced")
+	if c.IsSet("unbalanced") && !(s.Unbalanced > 0) {
+		return s, usagef("--unbalanced must be positive, got %g", s.Unbalanced)
+	}
+	if p := c.String("mask"); p != "" {
+		ls, err := loadSettings(c)
+		if err != nil {
+			return s, err
+		}
+		m, err := fieldfile.Load(p, fieldfile.LoadSettings{MaxPixels: ls.MaxPixels, SkipValidate: true})
+		if err != nil {
+			return s, err
+		}
+		s.Mask = make([]bool, len(m.Data))
+		any := false
+		for i, v := range m.Data {
+			s.Mask[i] = v != 0
+			any = any || v != 0
+		}
+		if !any {
+			return s, fmt.Errorf("%s: mask allows no pixel", p)
+		}
+		maskShape = [2]int{m.Rows, m.Cols}
+	}
+	s.DropOutside = c.Bool("drop-outside")
 	if c.IsSet("relax") && !(s.Relax > 0 && s.Relax < 2) {
 		return s, usagef("--relax must lie in (0, 2), got %g", s.Relax)
 	}
@@ -62,10 +90,14 @@ func solverSettings(c *cli.Context) (sinkhorn.Settings, error) {
 	return s, nil
 }
 
+// maskShape is the shape of the --mask file, checked against the inputs.
+var maskShape [2]int
+
 // inputReport describes one input in a report.
 type inputReport struct {
 	File     string     `json:"file"`
 	Mass     float64    `json:"mass"`
+	Dropped  float64    `json:"dropped_outside_mask,omitempty"`
 	Weight   float64    `json:"weight"`
 	Centroid [2]float64 `json:"centroid"`
 }
@@ -98,6 +130,9 @@ type baryReport struct {
 	Residuals  []float64     `json:"residual_history"`
 	DebiasViol float64       `json:"debias_violation,omitempty"`
 	Ranking    []rankEntry   `json:"ranking,omitempty"`
+	Unbalanced float64       `json:"unbalanced_penalty,omitempty"`
+	Masked     bool          `json:"masked,omitempty"`
+	BaryMass   float64       `json:"barycenter_mass_in_input_units"`
 }
 
 func printRanking(ranks []rankEntry) {
@@ -135,8 +170,13 @@ func newBaryReport(files []string, fs []*grid.Field, weights []float64, s sinkho
 			w = weights[i]
 		}
 		m := grid.ComputeMoments(f)
-		rep.Inputs = append(rep.Inputs, inputReport{File: files[i], Mass: m.Mass, Weight: w / wsum, Centroid: m.Mean})
+		ir := inputReport{File: files[i], Mass: m.Mass, Weight: w / wsum, Centroid: m.Mean}
+		if i < len(r.Dropped) {
+			ir.Dropped = r.Dropped[i]
+		}
+		rep.Inputs = append(rep.Inputs, ir)
 	}
+	rep.Unbalanced, rep.Masked, rep.BaryMass = s.Unbalanced, s.Mask != nil, r.Mass
 	if r.Barycenter != nil {
 		m := grid.ComputeMoments(r.Barycenter)
 		rep.Mass, rep.Centroid, rep.Covariance = m.Mass, m.Mean, m.Cov
@@ -174,6 +214,9 @@ func barycenterCommand() *cli.Command {
 			}
 			if s.Weights, err = parseWeights(c.String("weights"), len(fs)); err != nil {
 				return err
+			}
+			if s.Mask != nil && (maskShape[0] != fs[0].Rows || maskShape[1] != fs[0].Cols) {
+				return fmt.Errorf("%s: mask is %dx%d, the fields are %dx%d", c.String("mask"), maskShape[0], maskShape[1], fs[0].Rows, fs[0].Cols)
 			}
 			r, err := sinkhorn.Barycenter(fs, s)
 			if s.Progress != nil {
