@@ -50,6 +50,9 @@ func CheckCov(c [][]float64, d int) (*mat.SymDense, error) {
 // sqrtm returns the symmetric square root (and, when inv, the inverse root)
 // by eigendecomposition; eigenvalues below zero from rounding are clipped.
 func sqrtm(a mat.Symmetric, inv bool) *mat.SymDense {
+	if a.SymmetricDim() == 2 {
+		return sqrt2(a, inv)
+	}
 	var es mat.EigenSym
 	if !es.Factorize(a, true) {
 		panic("gaussfit: eigendecomposition failed")
@@ -76,6 +79,29 @@ func sqrtm(a mat.Symmetric, inv bool) *mat.SymDense {
 		}
 	}
 	return out
+}
+
+// sqrt2 is the closed form for 2 x 2 SPD matrices (Cayley-Hamilton):
+// sqrt(A) = (A + s I) / t with s = sqrt(det A), t = sqrt(tr A + 2 s); it is
+// the hot path of the fast path and ten times cheaper than an eigensolve.
+func sqrt2(a mat.Symmetric, inv bool) *mat.SymDense {
+	p, q, r := a.At(0, 0), a.At(0, 1), a.At(1, 1)
+	det := math.Max(p*r-q*q, 0)
+	s := math.Sqrt(det)
+	t := math.Sqrt(math.Max(p+r+2*s, 0))
+	if t == 0 {
+		return mat.NewSymDense(2, []float64{0, 0, 0, 0})
+	}
+	x, y, z := (p+s)/t, q/t, (r+s)/t
+	if inv {
+		d := x*z - y*y
+		if d <= 0 {
+			inf := math.Inf(1)
+			return mat.NewSymDense(2, []float64{inf, 0, 0, inf})
+		}
+		x, y, z = z/d, -y/d, x/d
+	}
+	return mat.NewSymDense(2, []float64{x, y, y, z})
 }
 
 func symmetrize(m mat.Matrix) *mat.SymDense {
@@ -276,13 +302,7 @@ func Barycenter(gs []Gaussian, s Settings) (*Result, error) {
 	for i := range all {
 		all[i] = i
 	}
-	gnorm := func(S *mat.SymDense) float64 {
-		G := grad(S, all, w)
-		for i := 0; i < d; i++ {
-			G.Set(i, i, G.At(i, i)-1)
-		}
-		return mat.Norm(G, 2)
-	}
+	gnorm := func(S *mat.SymDense) float64 { return normMinusI(grad(S, all, w), d) }
 	step := func(S *mat.SymDense, G mat.Matrix, eta float64) *mat.SymDense {
 		M := mat.NewDense(d, d, nil)
 		for i := 0; i < d; i++ {
@@ -307,11 +327,15 @@ func Barycenter(gs []Gaussian, s Settings) (*Result, error) {
 		if s.Solver == FixedPoint {
 			eta = 1 // the fixed-point iteration is the unit-step gradient step
 		}
+		// The map average at S is both the step's direction and the
+		// convergence measure, so each iteration computes it once.
+		G := grad(S, all, w)
 		for it := 1; it <= maxIter; it++ {
-			S = step(S, grad(S, all, w), eta)
+			S = step(S, G, eta)
 			res.Iterations = it
 			res.Objective = append(res.Objective, objective(S))
-			if g := gnorm(S); g <= tol {
+			G = grad(S, all, w)
+			if g := normMinusI(G, d); g <= tol {
 				res.Converged, res.GradNorm = true, g
 				break
 			}
@@ -360,10 +384,28 @@ func Barycenter(gs []Gaussian, s Settings) (*Result, error) {
 	default:
 		return nil, fmt.Errorf("gaussfit: unknown solver %d", s.Solver)
 	}
-	res.GradNorm = gnorm(S)
+	if !res.Converged || s.Solver == Stochastic {
+		res.GradNorm = gnorm(S)
+	}
 	res.Barycenter = Gaussian{Mean: mean, Cov: S}
 	res.Elapsed = time.Since(start)
 	return res, nil
+}
+
+// normMinusI returns |G - I|_F, G the weighted mean of the maps: zero
+// exactly at the barycenter (the Riemannian gradient is G - I).
+func normMinusI(G *mat.Dense, d int) float64 {
+	var s float64
+	for i := 0; i < d; i++ {
+		for j := 0; j < d; j++ {
+			v := G.At(i, j)
+			if i == j {
+				v--
+			}
+			s += v * v
+		}
+	}
+	return math.Sqrt(s)
 }
 
 func scaled(s mat.Symmetric, f float64) *mat.SymDense {
