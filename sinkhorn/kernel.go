@@ -67,29 +67,65 @@ func (k *Kernel) Apply(dst, src, tmp []float64) {
 }
 
 // axpyPass: dst[r', :] = sum_r w(r - r') src[r, :] for an n x m array,
-// as row-axpys on contiguous rows, four taps at a time to cut loads and
-// stores.
+// as row-axpys on contiguous rows. The kernel is symmetric, so rows at equal
+// distance above and below share one multiply (pairs of taps at a time);
+// taps that reach past only one border are added four rows at a time.
 func axpyPass(dst, src []float64, n, m int, taps []float64, R int) {
+	k := taps[R:] // k[t] = w(t), t >= 0
+	row := func(j int) []float64 { return src[j*m : (j+1)*m] }
 	for r := 0; r < n; r++ {
 		out := dst[r*m : (r+1)*m]
-		lo, hi := max(0, r-R), min(n-1, r+R)
-		w := taps[lo-r+R : hi-r+R+1] // w[j-lo] multiplies row j
-		clear(out)
-		j := lo
-		for ; j+3 <= hi; j += 4 {
-			axpy4(out, w[j-lo], w[j-lo+1], w[j-lo+2], w[j-lo+3], src[j*m:(j+4)*m], m)
+		axpySet(out, k[0], row(r))
+		both := min(R, r, n-1-r)
+		t := 1
+		for ; t+1 <= both; t += 2 {
+			axpyPair2(out, k[t], k[t+1], row(r-t), row(r+t), row(r-t-1), row(r+t+1))
 		}
-		for ; j <= hi; j++ {
-			axpy1(out, w[j-lo], src[j*m:(j+1)*m])
+		for ; t <= both; t++ {
+			axpyPair1(out, k[t], row(r-t), row(r+t))
+		}
+		// One-sided taps: below r when r is near the top border, above it
+		// when near the bottom (at most one of the two ranges is non-empty
+		// beyond both).
+		lo, hi := both+1, min(R, r)
+		for t = lo; t+3 <= hi; t += 4 {
+			axpy4r(out, k[t], k[t+1], k[t+2], k[t+3], row(r-t), row(r-t-1), row(r-t-2), row(r-t-3))
+		}
+		for ; t <= hi; t++ {
+			axpy1(out, k[t], row(r-t))
+		}
+		lo, hi = both+1, min(R, n-1-r)
+		for t = lo; t+3 <= hi; t += 4 {
+			axpy4r(out, k[t], k[t+1], k[t+2], k[t+3], row(r+t), row(r+t+1), row(r+t+2), row(r+t+3))
+		}
+		for ; t <= hi; t++ {
+			axpy1(out, k[t], row(r+t))
 		}
 	}
 }
 
-func axpy4(out []float64, w0, w1, w2, w3 float64, s []float64, m int) {
-	s0 := s[:m]
-	s1 := s[m : 2*m]
-	s2 := s[2*m : 3*m]
-	s3 := s[3*m : 4*m]
+func axpySet(out []float64, w float64, s []float64) {
+	s = s[:len(out)]
+	for c := range out {
+		out[c] = w * s[c]
+	}
+}
+
+func axpyPair1(out []float64, w float64, a, b []float64) {
+	a, b = a[:len(out)], b[:len(out)]
+	for c := range out {
+		out[c] += w * (a[c] + b[c])
+	}
+}
+
+func axpyPair2(out []float64, w0, w1 float64, a0, b0, a1, b1 []float64) {
+	a0, b0, a1, b1 = a0[:len(out)], b0[:len(out)], a1[:len(out)], b1[:len(out)]
+	for c := range out {
+		out[c] += w0*(a0[c]+b0[c]) + w1*(a1[c]+b1[c])
+	}
+}
+
+func axpy4r(out []float64, w0, w1, w2, w3 float64, s0, s1, s2, s3 []float64) {
 	s0, s1, s2, s3 = s0[:len(out)], s1[:len(out)], s2[:len(out)], s3[:len(out)]
 	for c := range out {
 		out[c] += w0*s0[c] + w1*s1[c] + w2*s2[c] + w3*s3[c]
