@@ -65,6 +65,9 @@ func morphCommand() *cli.Command {
 			if err != nil {
 				return err
 			}
+			if s.Mask != nil && (maskShape[0] != fs[0].Rows || maskShape[1] != fs[0].Cols) {
+				return fmt.Errorf("%s: mask is %dx%d, the fields are %dx%d", c.String("mask"), maskShape[0], maskShape[1], fs[0].Rows, fs[0].Cols)
+			}
 			frames := make([]*grid.Field, n)
 			var ga, gb gaussfit.Gaussian
 			if c.Bool("gauss") {
@@ -88,7 +91,7 @@ func morphCommand() *cli.Command {
 					frames[i] = gaussfit.Render(gaussfit.Geodesic(ga, gb, t), fs[0].Rows, fs[0].Cols, dx, dy, 1)
 					return
 				}
-				if t == 0 || t == 1 {
+				if (t == 0 || t == 1) && s.Unbalanced == 0 && s.Mask == nil {
 					frames[i], errs[i] = grid.Normalize(fs[int(t)])
 					return
 				}
@@ -199,6 +202,9 @@ func distanceCommand() *cli.Command {
 				return err
 			}
 			s.Progress = nil
+			if s.Unbalanced > 0 || s.Mask != nil {
+				return usagef("distance: --unbalanced and --mask are not supported for divergences yet")
+			}
 			fs, err := loadFields(c, files)
 			if err != nil {
 				return err
