@@ -2,6 +2,8 @@ package main
 
 import (
 	"fmt"
+	"image/png"
+	"io"
 	"math"
 	"os"
 	"path/filepath"
@@ -10,6 +12,7 @@ import (
 	"barygrid/gaussfit"
 	"barygrid/grid"
 	"barygrid/io/fieldfile"
+	"barygrid/io/imagefile"
 	"barygrid/sinkhorn"
 
 	"github.com/urfave/cli/v2"
@@ -75,6 +78,9 @@ func demoCommand() *cli.Command {
 						return err
 					}
 				}
+				if err := writeOverlay(filepath.Join(sub, "gauss_ellipses.png"), force, set.fields, mean, gb); err != nil {
+					return err
+				}
 				rep := newBaryReport(files, set.fields, nil, sinkhorn.Settings{}, r)
 				if err := writeJSON(filepath.Join(sub, "report.json"), force, rep); err != nil {
 					return err
@@ -89,11 +95,27 @@ func demoCommand() *cli.Command {
 					sqrtTrace(bm.Cov), u, math.Hypot(gm.Major, gm.Minor), u, sqrtTrace(mm.Cov), u)
 				fmt.Printf("  centroid: barycenter (%.4g, %.4g) %s, Gaussian barycenter (%.4g, %.4g) %s\n",
 					bm.Mean[0], bm.Mean[1], u, gb.Mean[0], gb.Mean[1], u)
-				fmt.Printf("  pictures: %s, %s, %s\n", filepath.Join(sub, "barycenter.png"), filepath.Join(sub, "gauss_barycenter.png"), filepath.Join(sub, "pixel_mean.png"))
+				fmt.Printf("  pictures: %s, %s, %s, %s\n", filepath.Join(sub, "barycenter.png"), filepath.Join(sub, "gauss_barycenter.png"),
+					filepath.Join(sub, "gauss_ellipses.png"), filepath.Join(sub, "pixel_mean.png"))
 			}
 			return nil
 		},
 	})
+}
+
+func writeOverlay(path string, force bool, fs []*grid.Field, mean *grid.Field, bary gaussfit.Gaussian) error {
+	var gs []gaussfit.Gaussian
+	for _, f := range fs {
+		g, _, err := gaussfit.Fit(f, gaussfit.FitSettings{})
+		if err != nil {
+			return err
+		}
+		gs = append(gs, g)
+	}
+	bg, _ := imagefile.Colorize(mean, imagefile.WriteSettings{})
+	dx, dy := fs[0].PixelSize()
+	im := gaussfit.Overlay(bg, dx, dy, max(1, 512/max(fs[0].Rows, fs[0].Cols)), gs, bary)
+	return fieldfile.WriteAtomic(path, force, func(w io.Writer) error { return png.Encode(w, im) })
 }
 
 // demoTol is looser than the command's default: the demo shows the method,

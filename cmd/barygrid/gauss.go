@@ -3,6 +3,8 @@ package main
 import (
 	"encoding/json"
 	"fmt"
+	"image/png"
+	"io"
 	"os"
 	"path/filepath"
 	"strings"
@@ -10,6 +12,7 @@ import (
 	"barygrid/gaussfit"
 	"barygrid/grid"
 	"barygrid/io/fieldfile"
+	"barygrid/io/imagefile"
 
 	"github.com/urfave/cli/v2"
 	"gonum.org/v1/gonum/mat"
@@ -104,6 +107,7 @@ func gaussCommand() *cli.Command {
 		&cli.BoolFlag{Name: "sheppard", Usage: "subtract the pixel-grouping variance dx^2/12 from each fit"},
 		&cli.StringFlag{Name: "out", Usage: "render the barycenter Gaussian on the inputs' grid to `FILE`"},
 		&cli.StringFlag{Name: "params", Usage: "write the barycenter parameters and solver figures to `FILE.json`"},
+		&cli.StringFlag{Name: "overlay", Usage: "write a PNG of every input's one-sigma ellipse and the barycenter's (thick) over the pixel mean to `FILE`"},
 	)
 	return withUsage(&cli.Command{
 		Name:      "gauss",
@@ -116,7 +120,8 @@ func gaussCommand() *cli.Command {
 				return usagef("gauss: no input files")
 			}
 			out, params := c.String("out"), c.String("params")
-			if err := checkOutputs(c.Bool("force"), out, params); err != nil {
+			overlay := c.String("overlay")
+			if err := checkOutputs(c.Bool("force"), out, params, overlay); err != nil {
 				return err
 			}
 			s := gaussfit.Settings{Tol: c.Float64("tol"), MaxIter: c.Int("max-iter"), Step: c.Float64("step"),
@@ -138,6 +143,7 @@ func gaussCommand() *cli.Command {
 				mass   float64
 				nfld   int
 				fields []string
+				refs   []*grid.Field
 			)
 			for _, p := range files {
 				if strings.EqualFold(filepath.Ext(p), ".json") {
@@ -165,6 +171,10 @@ func gaussCommand() *cli.Command {
 					nfld++
 				}
 				ref = fs[0]
+				if err := grid.SameShape(fs, fields); err != nil && overlay != "" {
+					return fmt.Errorf("--overlay needs fields of one shape: %v", err)
+				}
+				refs = fs
 			}
 			for i, g := range gs {
 				if len(g.Mean) != len(gs[0].Mean) {
@@ -201,6 +211,18 @@ func gaussCommand() *cli.Command {
 				f := gaussfit.Render(b, ref.Rows, ref.Cols, dx, dy, p.MeanMass)
 				f.Unit = ref.Unit
 				if _, err := fieldfile.Save(out, f, saveSettings(c)); err != nil {
+					return err
+				}
+			}
+			if overlay != "" {
+				if ref == nil || len(b.Mean) != 2 {
+					return usagef("--overlay needs field inputs (2-D)")
+				}
+				dx, dy := ref.PixelSize()
+				bg, _ := imagefile.Colorize(pixelMean(refs), imagefile.WriteSettings{})
+				zoom := max(1, 512/max(ref.Rows, ref.Cols))
+				im := gaussfit.Overlay(bg, dx, dy, zoom, gs[len(gs)-nfld:], b)
+				if err := fieldfile.WriteAtomic(overlay, c.Bool("force"), func(w io.Writer) error { return png.Encode(w, im) }); err != nil {
 					return err
 				}
 			}
