@@ -120,7 +120,7 @@ type scalingState struct {
 // caller can move to the log domain.
 func (p *problem) scaling(guard bool) *Result {
 	K := len(p.a)
-	cutoff := 1e-80
+	cutoff := initialCutoff
 	st := &scalingState{p: p, k: NewKernel(p.rows, p.cols, p.dx, p.dy, p.eps, cutoff)}
 	alloc := func() []float64 { return make([]float64, p.n) }
 	for range K {
@@ -447,3 +447,9 @@ func powerMeanLog(l, w []float64, q float64) float64 {
 	}
 	return m + math.Log1p(s)/q
 }
+
+// initialCutoff sets the first band of the scaling iteration; the periodic
+// truncation check widens it when the untruncated kernel disagrees.
+// Narrower starts (1e-40, 1e-25) were measured: they save little per
+// iteration at epsilon 16 on 128^2 and slow over-relaxation down 4-7x.
+const initialCutoff = 1e-80
