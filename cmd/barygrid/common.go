@@ -3,9 +3,11 @@ package main
 import (
 	"encoding/json"
 	"fmt"
+	"image"
 	"io"
 	"math"
 	"os"
+	"runtime"
 	"strconv"
 	"strings"
 
@@ -167,3 +169,7 @@ func parseWeights(v string, n int) ([]float64, error) {
 }
 
 func sqrtf(x float64) float64 { return math.Sqrt(x) }
+
+type imageNRGBA = image.NRGBA
+
+func numCPU() int { return runtime.GOMAXPROCS(0) }

@@ -68,6 +68,7 @@ func newApp() *cli.App {
 			gaussCommand(),
 			morphCommand(),
 			distanceCommand(),
+			batchCommand(),
 			demoCommand(),
 		},
 		Action: func(c *cli.Context) error {
