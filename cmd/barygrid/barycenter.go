@@ -2,9 +2,12 @@ package main
 
 import (
 	"fmt"
+	"image/png"
+	"io"
 	"os"
 	"time"
 
+	"barygrid/gaussfit"
 	"barygrid/grid"
 	"barygrid/io/fieldfile"
 	"barygrid/sinkhorn"
@@ -191,6 +194,7 @@ func barycenterCommand() *cli.Command {
 		&cli.StringFlag{Name: "weights", Usage: "comma-separated weights `w1,w2,...`, one per input (normalised to sum 1)"},
 		&cli.StringFlag{Name: "out", Usage: "write the barycenter to `FILE` (.npy, .csv, .png, .tif)"},
 		&cli.StringFlag{Name: "report", Usage: "write a JSON report to `FILE.json`"},
+		&cli.StringFlag{Name: "sheet", Usage: "write a contact sheet PNG (inputs, pixel mean, barycenter, Gaussian ellipses) to `FILE`"},
 		&cli.BoolFlag{Name: "rank", Usage: "rank the inputs by Sinkhorn divergence to the barycenter and flag outliers (median + 3 scaled MAD)"},
 	)
 	return withUsage(&cli.Command{
@@ -200,8 +204,8 @@ func barycenterCommand() *cli.Command {
 		Flags:     flags,
 		Action: func(c *cli.Context) error {
 			files := c.Args().Slice()
-			out, report := c.String("out"), c.String("report")
-			if err := checkOutputs(c.Bool("force"), out, report); err != nil {
+			out, report, sheetPath := c.String("out"), c.String("report"), c.String("sheet")
+			if err := checkOutputs(c.Bool("force"), out, report, sheetPath); err != nil {
 				return err
 			}
 			s, err := solverSettings(c)
@@ -246,6 +250,11 @@ func barycenterCommand() *cli.Command {
 					return err
 				}
 			}
+			if sheetPath != "" && r.Barycenter != nil {
+				if err := writeSheet(sheetPath, c.Bool("force"), "barycenter", files, fs, r.Barycenter); err != nil {
+					return err
+				}
+			}
 			fmt.Printf("barycenter of %d fields (%dx%d): %s after %d iterations, residual %.3g, epsilon %.4g%s, %s, %.2fs\n",
 				len(fs), fs[0].Rows, fs[0].Cols, r.Status, r.Iterations, r.Residual, r.Epsilon, unitSq(fs[0].Unit),
 				map[bool]string{true: "debiased", false: "plain"}[r.Debiased], r.Elapsed.Seconds())
@@ -262,4 +271,28 @@ func unitSq(u string) string {
 		return " px^2"
 	}
 	return " " + u + "^2"
+}
+
+// writeSheet writes a contact sheet of the inputs, their pixel mean, the
+// given barycenter (nil: none) and the Gaussian ellipses.
+func writeSheet(path string, force bool, title string, files []string, fs []*grid.Field, bary *grid.Field) error {
+	var gs []gaussfit.Gaussian
+	for i, f := range fs {
+		g, _, err := gaussfit.Fit(f, gaussfit.FitSettings{})
+		if err != nil {
+			return fmt.Errorf("%s: %w", files[i], err)
+		}
+		gs = append(gs, g)
+	}
+	gr, err := gaussfit.Barycenter(gs, gaussfit.Settings{})
+	if err != nil {
+		return err
+	}
+	mean := pixelMean(fs)
+	if bary == nil {
+		dx, dy := fs[0].PixelSize()
+		bary = gaussfit.Render(gr.Barycenter, fs[0].Rows, fs[0].Cols, dx, dy, 1)
+	}
+	im := contactSheet(title, files, fs, mean, bary, gs, gr.Barycenter)
+	return fieldfile.WriteAtomic(path, force, func(w io.Writer) error { return png.Encode(w, im) })
 }

@@ -42,12 +42,14 @@ func demoCommand() *cli.Command {
 				_, err := fieldfile.Save(path, f, s)
 				return err
 			}
+			var batchIn []string
 			for _, set := range sets {
 				sub := filepath.Join(dir, set.name)
 				if err := os.MkdirAll(filepath.Join(sub, "inputs"), 0o755); err != nil {
 					return fmt.Errorf("%s: %v", sub, err)
 				}
 				var files []string
+				batchIn = append(batchIn, filepath.Join(sub, "inputs"))
 				for i, f := range set.fields {
 					p := filepath.Join(sub, "inputs", fmt.Sprintf("%s_%02d.npy", set.name, i+1))
 					if err := save(p, f, fieldfile.SaveSettings{}); err != nil {
@@ -97,6 +99,47 @@ func demoCommand() *cli.Command {
 					bm.Mean[0], bm.Mean[1], u, gb.Mean[0], gb.Mean[1], u)
 				fmt.Printf("  pictures: %s, %s, %s, %s\n", filepath.Join(sub, "barycenter.png"), filepath.Join(sub, "gauss_barycenter.png"),
 					filepath.Join(sub, "gauss_ellipses.png"), filepath.Join(sub, "pixel_mean.png"))
+			}
+			// End with a batch over the scenario, as a user runs it daily: one
+			// group per set (a manifest pointing at the inputs just written).
+			man := filepath.Join(dir, "batch_groups.csv")
+			err := fieldfile.WriteAtomic(man, true, func(w io.Writer) error {
+				fmt.Fprintln(w, "group,file")
+				for i, set := range sets {
+					names, _ := filepath.Glob(filepath.Join(batchIn[i], "*.npy"))
+					for _, n := range names {
+						rel, _ := filepath.Rel(dir, n)
+						fmt.Fprintf(w, "%s,%s\n", set.name, rel)
+					}
+				}
+				return nil
+			})
+			if err != nil {
+				return err
+			}
+			bdir := filepath.Join(dir, "batch")
+			groups, err := readManifest(man)
+			if err != nil {
+				return err
+			}
+			s := sinkhorn.Settings{Tol: demoTol, Workers: c.Int("threads")}
+			settings := map[string]any{"tol": demoTol, "demo": true}
+			if err := os.MkdirAll(bdir, 0o755); err != nil {
+				return fmt.Errorf("%s: %v", bdir, err)
+			}
+			var rows []summaryRow
+			for _, g := range groups {
+				rows = append(rows, processGroup(g, bdir, fieldfile.LoadSettings{}, s, settings, force, ""))
+			}
+			if err := writeSummary(filepath.Join(bdir, "summary.csv"), rows); err != nil {
+				return err
+			}
+			fmt.Printf("batch over the scenario: %s (contact sheets and convergence plots in %s/GROUP/)\n",
+				filepath.Join(bdir, "summary.csv"), bdir)
+			for _, r := range rows {
+				if r.Status == "failed" {
+					return fmt.Errorf("demo batch group %s failed: %s", r.Group, r.Message)
+				}
 			}
 			return nil
 		},

@@ -107,6 +107,7 @@ func gaussCommand() *cli.Command {
 		&cli.BoolFlag{Name: "sheppard", Usage: "subtract the pixel-grouping variance dx^2/12 from each fit"},
 		&cli.StringFlag{Name: "out", Usage: "render the barycenter Gaussian on the inputs' grid to `FILE`"},
 		&cli.StringFlag{Name: "params", Usage: "write the barycenter parameters and solver figures to `FILE.json`"},
+		&cli.StringFlag{Name: "sheet", Usage: "write a contact sheet PNG (inputs, pixel mean, rendered Gaussian barycenter, ellipses) to `FILE`"},
 		&cli.StringFlag{Name: "overlay", Usage: "write a PNG of every input's one-sigma ellipse and the barycenter's (thick) over the pixel mean to `FILE`"},
 	)
 	return withUsage(&cli.Command{
@@ -121,7 +122,8 @@ func gaussCommand() *cli.Command {
 			}
 			out, params := c.String("out"), c.String("params")
 			overlay := c.String("overlay")
-			if err := checkOutputs(c.Bool("force"), out, params, overlay); err != nil {
+			sheetPath := c.String("sheet")
+			if err := checkOutputs(c.Bool("force"), out, params, overlay, sheetPath); err != nil {
 				return err
 			}
 			s := gaussfit.Settings{Tol: c.Float64("tol"), MaxIter: c.Int("max-iter"), Step: c.Float64("step"),
@@ -223,6 +225,14 @@ func gaussCommand() *cli.Command {
 				zoom := max(1, 512/max(ref.Rows, ref.Cols))
 				im := gaussfit.Overlay(bg, dx, dy, zoom, gs[len(gs)-nfld:], b)
 				if err := fieldfile.WriteAtomic(overlay, c.Bool("force"), func(w io.Writer) error { return png.Encode(w, im) }); err != nil {
+					return err
+				}
+			}
+			if sheetPath != "" {
+				if len(refs) == 0 || grid.SameShape(refs, fields) != nil {
+					return usagef("--sheet needs field inputs of one shape")
+				}
+				if err := writeSheet(sheetPath, c.Bool("force"), "Gaussian barycenter", fields, refs, nil); err != nil {
 					return err
 				}
 			}
