@@ -85,6 +85,10 @@ type Settings struct {
 	// pixels. Input mass outside it is an error unless DropOutside.
 	Mask        []bool
 	DropOutside bool
+	// Warm starts the iteration from the scalings of an earlier result on
+	// the same grid, epsilon and number of inputs (for example the previous
+	// frame of a morph); nil starts cold.
+	Warm *WarmStart
 	// Progress, when set, is called after every iteration.
 	Progress func(iter int, residual float64)
 }
@@ -120,8 +124,25 @@ type Result struct {
 	// unbalanced ones the mass the formulation gives, in the units of the
 	// inputs (Barycenter itself is then scaled to that mass).
 	Mass float64
+	// Warm holds the final scalings, to warm-start a related problem.
+	Warm *WarmStart
 	// Switched reports that MethodAuto moved to the log domain.
 	Switched bool
+}
+
+// WarmStart is the state a solve can start from: the log-scalings
+// (potentials over epsilon) of the second marginals and of the debiasing
+// field.
+type WarmStart struct {
+	rows, cols int
+	eps        float64
+	logV       [][]float64
+	logD       []float64
+}
+
+func (w *WarmStart) fits(p *problem) bool {
+	return w != nil && w.rows == p.rows && w.cols == p.cols && w.eps == p.eps && len(w.logV) == len(p.a) &&
+		(p.debias == (w.logD != nil))
 }
 
 // DefaultEpsilon is the epsilon used when Settings leaves it zero: the square
@@ -145,6 +166,7 @@ type problem struct {
 	maxIter       int
 	debias        bool
 	workers       int
+	warm          *WarmStart
 	progress      func(int, float64)
 	relax         float64
 	lambda        float64 // rho / (rho + eps); 1 when balanced
@@ -163,7 +185,7 @@ func setup(fields []*grid.Field, s Settings) (*problem, error) {
 	dx, dy := f0.PixelSize()
 	p := &problem{rows: f0.Rows, cols: f0.Cols, n: f0.Rows * f0.Cols, dx: dx, dy: dy,
 		eps: s.Epsilon, tol: s.Tol, maxIter: s.MaxIter, debias: !s.Plain,
-		workers: s.Workers, progress: s.Progress, relax: s.Relax}
+		workers: s.Workers, progress: s.Progress, relax: s.Relax, warm: s.Warm}
 	if err := grid.SameShape(fields, nil); err != nil {
 		return nil, err
 	}

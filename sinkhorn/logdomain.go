@@ -68,6 +68,16 @@ func (p *problem) logDomain(start *warm) *Result {
 	ext := math.Max(float64(p.cols)*p.dx, float64(p.rows)*p.dy)
 	eps := math.Max(p.eps, ext*ext/10)
 	prevEps := eps
+	if start == nil && p.warm.fits(p) {
+		// A warm start is already at the target epsilon: no epsilon-scaling.
+		eps, prevEps = p.eps, p.eps
+		for k := range K {
+			copy(st.G[k], p.warm.logV[k])
+		}
+		if st.ld != nil {
+			copy(st.ld, p.warm.logD)
+		}
+	}
 	if start != nil {
 		eps, prevEps = math.Max(p.eps, start.eps), start.eps
 		for k := range K {
@@ -150,6 +160,13 @@ func (p *problem) logDomain(start *warm) *Result {
 		prevEps, eps = eps, eps/2
 	}
 	res.Barycenter = p.output(st.lb, true)
+	res.Warm = &WarmStart{rows: p.rows, cols: p.cols, eps: p.eps}
+	for k := range K {
+		res.Warm.logV = append(res.Warm.logV, append([]float64(nil), st.G[k]...))
+	}
+	if st.ld != nil {
+		res.Warm.logD = append([]float64(nil), st.ld...)
+	}
 	return res
 }
 

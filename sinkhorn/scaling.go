@@ -143,6 +143,18 @@ func (p *problem) scaling(guard bool) *Result {
 			st.d[i] = 1
 		}
 	}
+	if p.warm.fits(p) {
+		for k := range K {
+			for i, x := range p.warm.logV[k] {
+				st.v[k][i] = math.Exp(x)
+			}
+		}
+		if st.d != nil {
+			for i, x := range p.warm.logD {
+				st.d[i] = math.Exp(x)
+			}
+		}
+	}
 	st.resid = make([]float64, K)
 	st.bad = make([]string, K+1)
 	grid.Parallel(K, p.workers, func(k int) { st.k.Apply(st.kv[k], st.v[k], st.tmp[k]) })
@@ -206,6 +218,13 @@ func (p *problem) scaling(guard bool) *Result {
 	res.Relax = rl.omega
 	res.DebiasResidual = st.dres
 	res.Band = max(st.k.rx, st.k.ry)
+	res.Warm = &WarmStart{rows: p.rows, cols: p.cols, eps: p.eps}
+	for k := range K {
+		res.Warm.logV = append(res.Warm.logV, logOf(st.v[k]))
+	}
+	if st.d != nil {
+		res.Warm.logD = logOf(st.d)
+	}
 	res.Barycenter = p.output(st.b, false)
 	return res
 }
