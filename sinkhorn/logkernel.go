@@ -63,34 +63,44 @@ func transpose(dst, src []float64, rows, cols int) {
 func lseRows(dst, src []float64, rows, n int, q []float64) {
 	nb := (n + blk - 1) / blk
 	bmax := make([]float64, nb)
+	bnd := make([]float64, nb)
 	ninf := math.Inf(-1)
+	q = q[:n]
 	for r := 0; r < rows; r++ {
 		in := src[r*n : (r+1)*n]
 		out := dst[r*n : (r+1)*n]
 		for j := range bmax {
 			m := ninf
 			for _, v := range in[j*blk : min((j+1)*blk, n)] {
-				m = math.Max(m, v)
+				if v > m {
+					m = v
+				}
 			}
 			bmax[j] = m
 		}
 		for c := range out {
-			// Block j spans [j*blk, (j+1)*blk); its nearest point to c bounds
+			// Block j spans [j*blk, (j+1)*blk); its point nearest to c bounds
 			// every term of the block by bmax[j] - q[dist].
-			bound := func(j int) float64 {
-				lo, hi := j*blk, min((j+1)*blk, n)-1
+			jc := c / blk
+			for j := range bnd {
 				d := 0
-				if c < lo {
+				if lo := j * blk; c < lo {
 					d = lo - c
-				} else if c > hi {
+				} else if hi := min((j+1)*blk, n) - 1; c > hi {
 					d = c - hi
 				}
-				return bmax[j] - q[d]
+				bnd[j] = bmax[j] - q[d]
 			}
 			best := ninf
-			jc := c / blk
-			scan := func(j int) {
-				for i := j * blk; i < min((j+1)*blk, n); i++ {
+			for j := -1; j < nb; j++ {
+				jj := j
+				if j == -1 {
+					jj = jc // the block holding c first: a good best early
+				} else if j == jc || bnd[j] <= best {
+					continue
+				}
+				lo, hi := jj*blk, min((jj+1)*blk, n)
+				for i := lo; i < hi; i++ {
 					d := i - c
 					if d < 0 {
 						d = -d
@@ -100,12 +110,6 @@ func lseRows(dst, src []float64, rows, n int, q []float64) {
 					}
 				}
 			}
-			scan(jc)
-			for j := 0; j < nb; j++ {
-				if j != jc && bound(j) > best {
-					scan(j)
-				}
-			}
 			if best == ninf {
 				out[c] = ninf
 				continue
@@ -113,10 +117,11 @@ func lseRows(dst, src []float64, rows, n int, q []float64) {
 			floor := best - logDrop
 			var s float64
 			for j := 0; j < nb; j++ {
-				if bound(j) < floor {
+				if bnd[j] < floor {
 					continue
 				}
-				for i := j * blk; i < min((j+1)*blk, n); i++ {
+				lo, hi := j*blk, min((j+1)*blk, n)
+				for i := lo; i < hi; i++ {
 					d := i - c
 					if d < 0 {
 						d = -d
