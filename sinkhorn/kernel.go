@@ -58,8 +58,10 @@ func (k *Kernel) Radius() (rx, ry int) { return k.rx, k.ry }
 // same size as scratch. dst and src must not overlap.
 func (k *Kernel) Apply(dst, src, tmp []float64) {
 	// Both passes as contiguous row-axpys: along y, transpose, along x
-	// (as y of the transpose), transpose back. The transposes cost far less
-	// than strided dot products along rows.
+	// (as y of the transpose), transpose back. The transposes cost less than
+	// strided dot products along rows, and less than axpys of each row
+	// against itself shifted (measured: 100 iterations on 8 x 128^2 took
+	// 1.0-1.4 s this way, 1.7-2.2 s shifted).
 	axpyPass(tmp, src, k.Rows, k.Cols, k.ky, k.ry)
 	transpose(dst, tmp, k.Rows, k.Cols)
 	axpyPass(tmp, dst, k.Cols, k.Rows, k.kx, k.rx)
@@ -108,27 +110,6 @@ func axpySet(out []float64, w float64, s []float64) {
 	s = s[:len(out)]
 	for c := range out {
 		out[c] = w * s[c]
-	}
-}
-
-func axpyPair1(out []float64, w float64, a, b []float64) {
-	a, b = a[:len(out)], b[:len(out)]
-	for c := range out {
-		out[c] += w * (a[c] + b[c])
-	}
-}
-
-func axpyPair2(out []float64, w0, w1 float64, a0, b0, a1, b1 []float64) {
-	a0, b0, a1, b1 = a0[:len(out)], b0[:len(out)], a1[:len(out)], b1[:len(out)]
-	for c := range out {
-		out[c] += w0*(a0[c]+b0[c]) + w1*(a1[c]+b1[c])
-	}
-}
-
-func axpy4r(out []float64, w0, w1, w2, w3 float64, s0, s1, s2, s3 []float64) {
-	s0, s1, s2, s3 = s0[:len(out)], s1[:len(out)], s2[:len(out)], s3[:len(out)]
-	for c := range out {
-		out[c] += w0*s0[c] + w1*s1[c] + w2*s2[c] + w3*s3[c]
 	}
 }
 

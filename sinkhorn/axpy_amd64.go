@@ -1,0 +1,58 @@
+package sinkhorn
+
+import "golang.org/x/sys/cpu"
+
+// The two inner loops of the banded kernel take 65% of a barycenter's time;
+// with AVX2 and FMA they run four lanes at a time. FMA rounds once where the
+// portable loop rounds twice, so results differ from other machines in the
+// last bits (the tests compare with tolerances, and results stay identical
+// for any number of threads on one machine).
+var useAVX = cpu.X86.HasAVX2 && cpu.X86.HasFMA
+
+//go:noescape
+func pair2AVX(out, a0, b0, a1, b1 *float64, n int, w0, w1 float64)
+
+//go:noescape
+func quad4AVX(out, s0, s1, s2, s3 *float64, n int, w0, w1, w2, w3 float64)
+
+func axpyPair2(out []float64, w0, w1 float64, a0, b0, a1, b1 []float64) {
+	n := len(out)
+	a0, b0, a1, b1 = a0[:n], b0[:n], a1[:n], b1[:n]
+	done := 0
+	if useAVX && n >= 4 {
+		done = n &^ 3
+		pair2AVX(&out[0], &a0[0], &b0[0], &a1[0], &b1[0], done, w0, w1)
+	}
+	for c := done; c < n; c++ {
+		out[c] += w0*(a0[c]+b0[c]) + w1*(a1[c]+b1[c])
+	}
+}
+
+func axpy4r(out []float64, w0, w1, w2, w3 float64, s0, s1, s2, s3 []float64) {
+	n := len(out)
+	s0, s1, s2, s3 = s0[:n], s1[:n], s2[:n], s3[:n]
+	done := 0
+	if useAVX && n >= 4 {
+		done = n &^ 3
+		quad4AVX(&out[0], &s0[0], &s1[0], &s2[0], &s3[0], done, w0, w1, w2, w3)
+	}
+	for c := done; c < n; c++ {
+		out[c] += w0*s0[c] + w1*s1[c] + w2*s2[c] + w3*s3[c]
+	}
+}
+
+//go:noescape
+func pair1AVX(out, a, b *float64, n int, w float64)
+
+func axpyPair1(out []float64, w float64, a, b []float64) {
+	n := len(out)
+	a, b = a[:n], b[:n]
+	done := 0
+	if useAVX && n >= 4 {
+		done = n &^ 3
+		pair1AVX(&out[0], &a[0], &b[0], done, w)
+	}
+	for c := done; c < n; c++ {
+		out[c] += w * (a[c] + b[c])
+	}
+}
