@@ -144,3 +144,39 @@ func TestMask(t *testing.T) {
 		t.Errorf("mass %g", r.Barycenter.Mass())
 	}
 }
+
+// The unbalanced Sinkhorn divergence (Sejourne et al. 2019): zero for equal
+// fields, symmetric, positive for a scaled copy and growing with the mass
+// difference, and close to the balanced divergence for equal masses and a
+// large penalty.
+func TestUnbalancedDivergence(t *testing.T) {
+	a, _ := grid.Normalize(gaussField(24, 24, 9, 10, 4))
+	b, _ := grid.Normalize(gaussField(24, 24, 13, 12, 4))
+	s := Settings{Epsilon: 1, Tol: 1e-9, MaxIter: 20000}
+	aa, _, err := UnbalancedDivergence(a, a, 5, s)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if math.Abs(aa) > 1e-9 {
+		t.Errorf("S(a, a) = %g", aa)
+	}
+	ab, _, _ := UnbalancedDivergence(a, b, 5, s)
+	ba, _, _ := UnbalancedDivergence(b, a, 5, s)
+	if !(ab > 0) || math.Abs(ab-ba) > 1e-6*ab {
+		t.Errorf("S(a, b) = %g, S(b, a) = %g", ab, ba)
+	}
+	s2, _, _ := UnbalancedDivergence(a, grid.Scale(a, 2), 5, s)
+	s3, _, _ := UnbalancedDivergence(a, grid.Scale(a, 3), 5, s)
+	if !(s2 > 0 && s3 > s2) {
+		t.Errorf("scaled copies: S(a, 2a) = %g, S(a, 3a) = %g", s2, s3)
+	}
+	bal, _, _ := Divergence(a, b, s)
+	big, _, err := UnbalancedDivergence(a, b, 500, Settings{Epsilon: 1, Tol: 1e-7, MaxIter: 20000})
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Logf("balanced %.6g, rho 5: %.6g, rho 500: %.6g; scaled x2 %.4g, x3 %.4g", bal, ab, big, s2, s3)
+	if math.Abs(big-bal) > 0.05*bal {
+		t.Errorf("rho 500: %g, balanced %g", big, bal)
+	}
+}

@@ -174,6 +174,7 @@ type distanceJSON struct {
 	Tol        float64 `json:"tol,omitempty"`
 	Unit       string  `json:"unit,omitempty"`
 	Iterations []int   `json:"iterations,omitempty"`
+	Unbalanced float64 `json:"unbalanced_penalty,omitempty"`
 }
 
 func distanceCommand() *cli.Command {
@@ -207,8 +208,8 @@ func distanceCommand() *cli.Command {
 				return err
 			}
 			s.Progress = nil
-			if s.Unbalanced > 0 || s.Mask != nil {
-				return usagef("distance: --unbalanced and --mask are not supported for divergences yet")
+			if s.Mask != nil {
+				return usagef("distance: --mask is not supported for divergences")
 			}
 			fs, err := loadFields(c, files)
 			if err != nil {
@@ -228,7 +229,16 @@ func distanceCommand() *cli.Command {
 				}
 				ss := s
 				ss.Workers = workers
-				d, rs, err := sinkhorn.Divergence(a, b, ss)
+				var (
+					d   float64
+					rs  []*sinkhorn.TransportResult
+					err error
+				)
+				if s.Unbalanced > 0 {
+					d, rs, err = sinkhorn.UnbalancedDivergence(a, b, s.Unbalanced, ss)
+				} else {
+					d, rs, err = sinkhorn.Divergence(a, b, ss)
+				}
 				var its []int
 				for _, r := range rs {
 					if r != nil {
@@ -251,7 +261,10 @@ func distanceCommand() *cli.Command {
 					return err
 				}
 				if c.Bool("json") {
-					o := distanceJSON{A: files[0], B: files[1], Kind: "sinkhorn-divergence", Divergence: d, Epsilon: eps, Tol: s.Tol, Unit: fs[0].Unit, Iterations: its}
+					o := distanceJSON{A: files[0], B: files[1], Kind: "sinkhorn-divergence", Divergence: d, Epsilon: eps, Tol: s.Tol, Unit: fs[0].Unit, Iterations: its, Unbalanced: s.Unbalanced}
+					if s.Unbalanced > 0 {
+						o.Kind = "unbalanced-sinkhorn-divergence"
+					}
 					if c.Bool("gauss") {
 						o = distanceJSON{A: files[0], B: files[1], Kind: "gaussian-w2-squared", W2Sq: d, Unit: fs[0].Unit}
 					}
