@@ -50,3 +50,20 @@ func BenchmarkBarycenter8x128Plain(b *testing.B) {
 		Barycenter(fs, Settings{Epsilon: 16, Plain: true, Relax: 1, Tol: 1e-300, MaxIter: 100})
 	}
 }
+
+// BenchmarkLogKernelSmooth128 applies the log-domain kernel (epsilon 2) to a
+// smooth potential, as the iteration meets them (a tilted paraboloid).
+func BenchmarkLogKernelSmooth128(b *testing.B) {
+	k := NewLogKernel(128, 128, 1, 1, 2)
+	src := make([]float64, 128*128)
+	for r := 0; r < 128; r++ {
+		for c := 0; c < 128; c++ {
+			x, y := float64(c)-50, float64(r)-70
+			src[r*128+c] = -(x*x+y*y)/8 + 3*x
+		}
+	}
+	dst, tmp := make([]float64, len(src)), make([]float64, len(src))
+	for b.Loop() {
+		k.Apply(dst, src, tmp)
+	}
+}
