@@ -153,8 +153,18 @@ func W2Sq(a, b Gaussian) float64 {
 // (McCann interpolation): mean (1-t) m1 + t m2, covariance
 // ((1-t) I + t T) S1 ((1-t) I + t T).
 func Geodesic(a, b Gaussian, t float64) Gaussian {
-	d := len(a.Mean)
-	T := Map(a.Cov, b.Cov)
+	m := make([]float64, len(a.Mean))
+	for i := range m {
+		m[i] = (1-t)*a.Mean[i] + t*b.Mean[i]
+	}
+	return Gaussian{Mean: m, Cov: moveAlong(a.Cov, Map(a.Cov, b.Cov), t)}
+}
+
+// moveAlong returns M S M with M = (1 - t) I + t T: the covariance after a
+// step t along the map T (a geodesic point for the map to one Gaussian, a
+// gradient step for the mean of the maps to many).
+func moveAlong(S mat.Symmetric, T mat.Matrix, t float64) *mat.SymDense {
+	d := S.SymmetricDim()
 	M := mat.NewDense(d, d, nil)
 	for i := 0; i < d; i++ {
 		for j := 0; j < d; j++ {
@@ -165,14 +175,10 @@ func Geodesic(a, b Gaussian, t float64) Gaussian {
 			M.Set(i, j, v)
 		}
 	}
-	var s mat.Dense
-	s.Mul(M, a.Cov)
-	s.Mul(&s, M)
-	m := make([]float64, d)
-	for i := range m {
-		m[i] = (1-t)*a.Mean[i] + t*b.Mean[i]
-	}
-	return Gaussian{Mean: m, Cov: symmetrize(&s)}
+	var n mat.Dense
+	n.Mul(M, S)
+	n.Mul(&n, M)
+	return symmetrize(&n)
 }
 
 // Solver selects the barycenter algorithm.
@@ -303,22 +309,7 @@ func Barycenter(gs []Gaussian, s Settings) (*Result, error) {
 		all[i] = i
 	}
 	gnorm := func(S *mat.SymDense) float64 { return normMinusI(grad(S, all, w), d) }
-	step := func(S *mat.SymDense, G mat.Matrix, eta float64) *mat.SymDense {
-		M := mat.NewDense(d, d, nil)
-		for i := 0; i < d; i++ {
-			for j := 0; j < d; j++ {
-				v := eta * G.At(i, j)
-				if i == j {
-					v += 1 - eta
-				}
-				M.Set(i, j, v)
-			}
-		}
-		var n mat.Dense
-		n.Mul(M, S)
-		n.Mul(&n, M)
-		return symmetrize(&n)
-	}
+	step := moveAlong
 	switch s.Solver {
 	case FixedPoint, Gradient:
 		if maxIter == 0 {

@@ -57,25 +57,9 @@ func Transport(a, b *grid.Field, s Settings) (*TransportResult, error) {
 		k.Apply(LKv, G, tmp)
 		for it := 0; it < cap; it++ {
 			// F = log a - LSE(G - C/eps), G = log b - LSE(F - C/eps).
-			for i := range F {
-				t := la[i] - LKv[i]
-				if la[i] == ninf {
-					t = ninf
-				} else if rl.omega != 1 && F[i] != ninf {
-					t = (1-rl.omega)*F[i] + rl.omega*t
-				}
-				F[i] = t
-			}
+			logUpdate(F, la, LKv, rl.omega)
 			k.Apply(LKu, F, tmp)
-			for i := range G {
-				t := lb[i] - LKu[i]
-				if lb[i] == ninf {
-					t = ninf
-				} else if rl.omega != 1 && G[i] != ninf {
-					t = (1-rl.omega)*G[i] + rl.omega*t
-				}
-				G[i] = t
-			}
+			logUpdate(G, lb, LKu, rl.omega)
 			k.Apply(LKv, G, tmp2)
 			var r float64
 			for i, x := range p.a[0] {
@@ -126,6 +110,21 @@ func Transport(a, b *grid.Field, s Settings) (*TransportResult, error) {
 	}
 	res.Elapsed = time.Since(start)
 	return res, nil
+}
+
+// logUpdate sets X = log m - L (the log of m / K y), over-relaxed by omega
+// in the log domain, where that is a linear blend; -Inf marks zero mass.
+func logUpdate(X, logm, L []float64, omega float64) {
+	ninf := math.Inf(-1)
+	for i := range X {
+		t := logm[i] - L[i]
+		if logm[i] == ninf {
+			t = ninf
+		} else if omega != 1 && X[i] != ninf {
+			t = (1-omega)*X[i] + omega*t
+		}
+		X[i] = t
+	}
 }
 
 func logOf(a []float64) []float64 {
