@@ -366,7 +366,7 @@ func Barycenter(fields []*grid.Field, s Settings) (*Result, error) {
 		res = p.logDomain(nil)
 	default:
 		if p.needsLog() {
-			res = p.logDomain(nil)
+			res = p.coarseThenLog()
 		} else {
 			res = p.scaling(true)
 			if res.Status == NumericalFailure {
@@ -398,7 +398,42 @@ func Barycenter(fields []*grid.Field, s Settings) (*Result, error) {
 // needsLog predicts scaling-domain failure: when the kernel between the
 // inputs' centroids is below 1e-200, the scalings must span more than the
 // float64 range (exp(-460)) to move that mass.
-func (p *problem) needsLog() bool {
+func (p *problem) needsLog() bool { return p.spread()/p.eps > 460 }
+
+// coarseThenLog solves the first epsilon stages with the scaling iteration,
+// at the smallest epsilon (target times a power of two) where it is
+// predicted safe, and hands its scalings to the log-domain iteration for the
+// remaining halvings. Large-epsilon stages are the log domain's most costly
+// (wide kernels, many terms per output) and the scaling iteration's
+// cheapest, so the switch costs nothing in accuracy and most of the time.
+func (p *problem) coarseThenLog() *Result {
+	epsS := p.eps
+	for epsS*460 < p.spread() {
+		epsS *= 2
+	}
+	q := *p
+	q.eps, q.tol, q.maxIter, q.warm, q.progress = epsS, math.Max(p.tol, 1e-4), min(p.maxIter/2, 2000), nil, nil
+	coarse := q.scaling(true)
+	if coarse.Status == NumericalFailure || coarse.Warm == nil {
+		return p.logDomain(nil)
+	}
+	rest := *p
+	rest.maxIter = p.maxIter - coarse.Iterations
+	p = &rest
+	start := &warm{g: coarse.Warm.logV, ld: coarse.Warm.logD, eps: epsS}
+	start.f = make([][]float64, len(p.a))
+	for k := range start.f {
+		start.f[k] = make([]float64, p.n)
+	}
+	res := p.logDomain(start)
+	res.Residuals = append(coarse.Residuals, res.Residuals...)
+	res.Iterations += coarse.Iterations
+	return res
+}
+
+// spread is the squared distance that mass must travel, as predicted from
+// the inputs' moments: the half distance between centroids plus both spreads.
+func (p *problem) spread() float64 {
 	var ms []grid.Moments
 	for _, a := range p.a {
 		ms = append(ms, grid.ComputeMoments(&grid.Field{Rows: p.rows, Cols: p.cols, Data: a, Dx: p.dx, Dy: p.dy}))
@@ -415,5 +450,5 @@ func (p *problem) needsLog() bool {
 			worst = math.Max(worst, d2)
 		}
 	}
-	return worst/p.eps > 460
+	return worst
 }

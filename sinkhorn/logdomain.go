@@ -20,11 +20,12 @@ type logState struct {
 	dres           float64
 }
 
-// Warm is a log-domain starting point: potentials f = eps log u and
-// g = eps log v (physical squared units, so valid across epsilons).
+// warm is a log-domain starting point solved at epsilon eps: log-scalings
+// f = log u, g = log v, ld = log d. The iteration resumes at eps/2, where
+// the same potentials read as twice these values.
 type warm struct {
 	f, g [][]float64
-	ld   []float64 // eps log d
+	ld   []float64
 	eps  float64
 }
 
@@ -79,7 +80,7 @@ func (p *problem) logDomain(start *warm) *Result {
 		}
 	}
 	if start != nil {
-		eps, prevEps = math.Max(p.eps, start.eps), start.eps
+		eps, prevEps = math.Max(p.eps, start.eps/2), start.eps
 		for k := range K {
 			copy(st.F[k], start.f[k])
 			copy(st.G[k], start.g[k])
