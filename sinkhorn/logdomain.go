@@ -192,6 +192,7 @@ func (st *logState) step(omega float64) {
 	const chunk = 4096
 	nc := (p.n + chunk - 1) / chunk
 	grid.Parallel(nc, p.workers, func(c int) {
+		l := make([]float64, K) // per chunk, not per pixel
 		for i := c * chunk; i < min((c+1)*chunk, p.n); i++ {
 			if p.mask != nil && !p.mask[i] {
 				st.lb[i] = ninf
@@ -206,7 +207,6 @@ func (st *logState) step(omega float64) {
 				}
 			} else {
 				// log b = log(sum_k w_k exp((1-lambda) LKu_k)) / (1-lambda).
-				l := make([]float64, K)
 				for k := range K {
 					l[k] = st.LKu[k][i]
 				}

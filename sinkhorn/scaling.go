@@ -252,6 +252,7 @@ func (st *scalingState) step(omega float64) {
 	nc := (p.n + chunk - 1) / chunk
 	grid.Parallel(nc, p.workers, func(c int) {
 		lo, hi := c*chunk, min((c+1)*chunk, p.n)
+		l := make([]float64, K) // per chunk, not per pixel
 		for i := lo; i < hi; i++ {
 			if p.mask != nil && !p.mask[i] {
 				st.b[i] = 0
@@ -268,9 +269,8 @@ func (st *scalingState) step(omega float64) {
 				b = math.Exp(s)
 			} else {
 				// Unbalanced: b = (sum_k w_k (K u_k)^{1-lambda})^{1/(1-lambda)}.
-				l := make([]float64, 0, 8)
 				for k := range K {
-					l = append(l, math.Log(st.ku[k][i]))
+					l[k] = math.Log(st.ku[k][i])
 				}
 				b = math.Exp(powerMeanLog(l, p.w, 1-p.lambda))
 			}
