@@ -81,9 +81,10 @@ type Settings struct {
 	// closer to the balanced problem. Debiasing is not defined for it and is
 	// switched off.
 	Unbalanced float64
-	// Mask, when set (len rows*cols), confines the barycenter to the true
-	// pixels. Input mass outside it is an error unless DropOutside.
-	Mask        []bool
+	// Mask, when set, confines the barycenter to its non-zero pixels; it
+	// must have the fields' shape. Input mass outside it is an error unless
+	// DropOutside.
+	Mask        *grid.Field
 	DropOutside bool
 	// Warm starts the iteration from the scalings of an earlier result on
 	// the same grid, epsilon and number of inputs (for example the previous
@@ -154,8 +155,12 @@ func DefaultEpsilon(rows, cols int, dx, dy float64) float64 {
 	return math.Max(side*side, h*h)
 }
 
-// ErrInput reports an unusable set of inputs.
-var ErrInput = errors.New("sinkhorn: bad input")
+// ErrInput reports an unusable set of inputs; ErrMask, a mask that does not
+// fit them (a subcase, so errors.Is(err, ErrInput) holds for both).
+var (
+	ErrInput = errors.New("sinkhorn: bad input")
+	ErrMask  = fmt.Errorf("%w: mask", ErrInput)
+)
 
 type problem struct {
 	rows, cols, n int
@@ -189,6 +194,10 @@ func setup(fields []*grid.Field, s Settings) (*problem, error) {
 	if err := grid.SameShape(fields, nil); err != nil {
 		return nil, err
 	}
+	mask, err := maskOf(s.Mask, p.rows, p.cols)
+	if err != nil {
+		return nil, err
+	}
 	for i, f := range fields {
 		fx, fy := f.PixelSize()
 		if fx != dx || fy != dy {
@@ -198,14 +207,11 @@ func setup(fields []*grid.Field, s Settings) (*problem, error) {
 			return nil, fmt.Errorf("field %d: %w", i+1, err)
 		}
 		data := f.Data
-		if s.Mask != nil {
-			if len(s.Mask) != p.n {
-				return nil, fmt.Errorf("%w: mask has %d pixels, fields have %d", ErrInput, len(s.Mask), p.n)
-			}
+		if mask != nil {
 			var out float64
 			first := -1
 			for j, v := range data {
-				if !s.Mask[j] && v > 0 {
+				if !mask[j] && v > 0 {
 					out += v
 					if first < 0 {
 						first = j
@@ -218,7 +224,7 @@ func setup(fields []*grid.Field, s Settings) (*problem, error) {
 			}
 			data = append([]float64(nil), data...)
 			for j := range data {
-				if !s.Mask[j] {
+				if !mask[j] {
 					data[j] = 0
 				}
 			}
@@ -235,7 +241,7 @@ func setup(fields []*grid.Field, s Settings) (*problem, error) {
 		}
 		p.a = append(p.a, a)
 	}
-	p.mask = s.Mask
+	p.mask = mask
 	p.lambda = 1
 	if s.Unbalanced < 0 || math.IsNaN(s.Unbalanced) {
 		return nil, fmt.Errorf("%w: unbalanced penalty must be positive, got %g", ErrInput, s.Unbalanced)
@@ -303,6 +309,26 @@ func abs(t int) int {
 		return -t
 	}
 	return t
+}
+
+// maskOf turns a mask field into allowed pixels, checking its shape.
+func maskOf(m *grid.Field, rows, cols int) ([]bool, error) {
+	if m == nil {
+		return nil, nil
+	}
+	if m.Rows != rows || m.Cols != cols || len(m.Data) != rows*cols {
+		return nil, fmt.Errorf("%w is %dx%d, the fields are %dx%d", ErrMask, m.Rows, m.Cols, rows, cols)
+	}
+	out := make([]bool, len(m.Data))
+	any := false
+	for i, v := range m.Data {
+		out[i] = v != 0
+		any = any || out[i]
+	}
+	if !any {
+		return nil, fmt.Errorf("%w allows no pixel", ErrMask)
+	}
+	return out, nil
 }
 
 func dropped(d []float64, k int) float64 {

@@ -1,6 +1,7 @@
 package sinkhorn
 
 import (
+	"errors"
 	"math"
 	"testing"
 
@@ -104,10 +105,9 @@ func TestLogDomainUnbalancedAgrees(t *testing.T) {
 
 func TestMask(t *testing.T) {
 	fs := []*grid.Field{gaussField(20, 20, 6, 6, 3), gaussField(20, 20, 13, 12, 3)}
-	n := 400
-	ones := make([]bool, n)
-	for i := range ones {
-		ones[i] = true
+	ones := grid.New(20, 20)
+	for i := range ones.Data {
+		ones.Data[i] = 1
 	}
 	plain, _ := Barycenter(fs, Settings{Epsilon: 2})
 	all, err := Barycenter(fs, Settings{Epsilon: 2, Mask: ones})
@@ -120,10 +120,11 @@ func TestMask(t *testing.T) {
 		}
 	}
 	// Mask out a band of columns 8..11: inputs have (tiny) mass there.
-	mask := make([]bool, n)
-	for i := range mask {
-		c := i % 20
-		mask[i] = c < 8 || c > 11
+	mask := grid.New(20, 20)
+	for i := range mask.Data {
+		if c := i % 20; c < 8 || c > 11 {
+			mask.Data[i] = 1
+		}
 	}
 	if _, err := Barycenter(fs, Settings{Epsilon: 2, Mask: mask}); err == nil {
 		t.Fatal("mass outside the mask accepted without DropOutside")
@@ -133,7 +134,7 @@ func TestMask(t *testing.T) {
 		t.Fatal(err)
 	}
 	for i, v := range r.Barycenter.Data {
-		if !mask[i] && v != 0 {
+		if mask.Data[i] == 0 && v != 0 {
 			t.Fatalf("masked pixel %d holds %g", i, v)
 		}
 	}
@@ -142,6 +143,12 @@ func TestMask(t *testing.T) {
 	}
 	if math.Abs(r.Barycenter.Mass()-1) > 1e-9 {
 		t.Errorf("mass %g", r.Barycenter.Mass())
+	}
+	if _, err := Barycenter(fs, Settings{Epsilon: 2, Mask: grid.New(10, 40)}); !errors.Is(err, ErrMask) {
+		t.Errorf("mask of another shape with as many pixels: got %v, want ErrMask", err)
+	}
+	if _, err := Barycenter(fs, Settings{Epsilon: 2, Mask: grid.New(20, 20)}); !errors.Is(err, ErrMask) {
+		t.Errorf("all-zero mask: got %v, want ErrMask", err)
 	}
 }
 

@@ -1,6 +1,7 @@
 package main
 
 import (
+	"errors"
 	"fmt"
 	"image/png"
 	"io"
@@ -48,16 +49,7 @@ func solverSettings(c *cli.Context) (sinkhorn.Settings, error) {
 		if err != nil {
 			return s, err
 		}
-		s.Mask = make([]bool, len(m.Data))
-		any := false
-		for i, v := range m.Data {
-			s.Mask[i] = v != 0
-			any = any || v != 0
-		}
-		if !any {
-			return s, fmt.Errorf("%s: mask allows no pixel", p)
-		}
-		maskShape = [2]int{m.Rows, m.Cols}
+		s.Mask = m
 	}
 	s.DropOutside = c.Bool("drop-outside")
 	if c.IsSet("relax") && !(s.Relax > 0 && s.Relax < 2) {
@@ -92,9 +84,6 @@ func solverSettings(c *cli.Context) (sinkhorn.Settings, error) {
 	}
 	return s, nil
 }
-
-// maskShape is the shape of the --mask file, checked against the inputs.
-var maskShape [2]int
 
 // inputReport describes one input in a report.
 type inputReport struct {
@@ -219,15 +208,12 @@ func barycenterCommand() *cli.Command {
 			if s.Weights, err = parseWeights(c.String("weights"), len(fs)); err != nil {
 				return err
 			}
-			if s.Mask != nil && (maskShape[0] != fs[0].Rows || maskShape[1] != fs[0].Cols) {
-				return fmt.Errorf("%s: mask is %dx%d, the fields are %dx%d", c.String("mask"), maskShape[0], maskShape[1], fs[0].Rows, fs[0].Cols)
-			}
 			r, err := sinkhorn.Barycenter(fs, s)
 			if s.Progress != nil {
 				fmt.Fprint(os.Stderr, "\r\033[K")
 			}
 			if err != nil {
-				return err
+				return maskError(c, err)
 			}
 			rep := newBaryReport(files, fs, s.Weights, s, r)
 			if c.Bool("rank") && r.Status == sinkhorn.Converged {
@@ -295,4 +281,12 @@ func writeSheet(path string, force bool, title string, files []string, fs []*gri
 	}
 	im := contactSheet(title, files, fs, mean, bary, gs, gr.Barycenter)
 	return fieldfile.WriteAtomic(path, force, func(w io.Writer) error { return png.Encode(w, im) })
+}
+
+// maskError names the --mask file in errors about the mask.
+func maskError(c *cli.Context, err error) error {
+	if errors.Is(err, sinkhorn.ErrMask) {
+		return fmt.Errorf("%s: %w", c.String("mask"), err)
+	}
+	return err
 }

@@ -65,9 +65,6 @@ func morphCommand() *cli.Command {
 			if err != nil {
 				return err
 			}
-			if s.Mask != nil && (maskShape[0] != fs[0].Rows || maskShape[1] != fs[0].Cols) {
-				return fmt.Errorf("%s: mask is %dx%d, the fields are %dx%d", c.String("mask"), maskShape[0], maskShape[1], fs[0].Rows, fs[0].Cols)
-			}
 			frames := make([]*grid.Field, n)
 			var ga, gb gaussfit.Gaussian
 			if c.Bool("gauss") {
@@ -105,7 +102,7 @@ func morphCommand() *cli.Command {
 					err = fmt.Errorf("frame %d (t = %.3g) did not converge: %s", i, t, r.Message)
 				}
 				if err != nil {
-					errs[i] = err
+					errs[i] = maskError(c, err)
 					break
 				}
 				frames[i], warm = r.Barycenter, r.Warm

@@ -275,3 +275,15 @@ func readFile(t *testing.T, p string) string {
 	}
 	return string(b)
 }
+
+// A mask of the wrong shape is an error that names the mask file.
+func TestMaskShapeError(t *testing.T) {
+	dir := t.TempDir()
+	files := writeBlobs(t, dir)
+	mask := filepath.Join(dir, "mask.csv")
+	os.WriteFile(mask, []byte("1,1\n1,1\n"), 0o644)
+	code, _, errs := runCLI(t, append([]string{"barycenter", "--epsilon", "2", "--mask", mask}, files...)...)
+	if code != 1 || !strings.Contains(errs, mask+": sinkhorn: bad input: mask is 2x2, the fields are 24x24") {
+		t.Errorf("exit %d, %q", code, errs)
+	}
+}
