@@ -168,7 +168,6 @@ func parseWeights(v string, n int) ([]float64, error) {
 	return w, nil
 }
 
-func sqrtf(x float64) float64 { return math.Sqrt(x) }
 
 type imageNRGBA = image.NRGBA
 

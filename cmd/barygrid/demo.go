@@ -1,169 +1,123 @@
 package main
 
 import (
+	"encoding/json"
 	"fmt"
-	"image/png"
-	"io"
 	"math"
 	"os"
 	"path/filepath"
-	"time"
 
-	"barygrid/gaussfit"
 	"barygrid/grid"
 	"barygrid/io/fieldfile"
-	"barygrid/io/imagefile"
 	"barygrid/sinkhorn"
 
 	"github.com/urfave/cli/v2"
 )
 
+// demoTol is looser than the command's default: the demo shows the method,
+// and 1e-5 in L1 is invisible in its pictures.
+const demoTol = 1e-5
+
+// demoSet is one invented scenario with the pixel size a user would give.
+type demoSet struct {
+	name, what string
+	fields     []*grid.Field
+	load       fieldfile.LoadSettings
+}
+
 func demoCommand() *cli.Command {
 	return withUsage(&cli.Command{
 		Name:  "demo",
-		Usage: "write an invented scenario (nuclei, storm ensemble) and average it",
+		Usage: "write an invented scenario (nuclei, storm ensemble) and average it as a batch",
 		Flags: []cli.Flag{
 			&cli.StringFlag{Name: "out", Value: "barygrid-demo", Usage: "folder to write into"},
-			&cli.BoolFlag{Name: "force", Usage: "replace files of an earlier demo"},
+			&cli.BoolFlag{Name: "force", Usage: "regenerate inputs and recompute results of an earlier demo"},
 			&cli.IntFlag{Name: "threads", Usage: "worker goroutines (default: all CPUs)"},
 		},
 		Action: func(c *cli.Context) error {
-			dir := c.String("out")
-			force := c.Bool("force")
-			sets := []struct {
-				name, what string
-				fields     []*grid.Field
-			}{
-				{"nuclei", "12 stained nuclei, 0.5 um pixels, camera floor removed at the 30th percentile (--background p30)", floorless(nuclei(12, 64, 1), 30)},
-				{"storm", "8 rain-rate ensemble members, 2 km pixels", storm(8, 80, 2)},
+			dir, force := c.String("out"), c.Bool("force")
+			sets := []demoSet{
+				{"nuclei", "12 stained nuclei, 0.5 um pixels, camera floor removed at the 30th percentile (as --background p30 does)",
+					floorless(nuclei(12, 64, 1), 30), fieldfile.LoadSettings{Dx: 0.5, Unit: "um"}},
+				{"storm", "8 rain-rate ensemble members, 2 km pixels",
+					storm(8, 80, 2), fieldfile.LoadSettings{Dx: 2, Unit: "km"}},
 			}
-			save := func(path string, f *grid.Field, s fieldfile.SaveSettings) error {
-				s.Force = force
-				_, err := fieldfile.Save(path, f, s)
-				return err
-			}
-			var batchIn []string
-			for _, set := range sets {
-				sub := filepath.Join(dir, set.name)
-				if err := os.MkdirAll(filepath.Join(sub, "inputs"), 0o755); err != nil {
-					return fmt.Errorf("%s: %v", sub, err)
-				}
-				var files []string
-				batchIn = append(batchIn, filepath.Join(sub, "inputs"))
-				for i, f := range set.fields {
-					p := filepath.Join(sub, "inputs", fmt.Sprintf("%s_%02d.npy", set.name, i+1))
-					if err := save(p, f, fieldfile.SaveSettings{}); err != nil {
-						return err
-					}
-					files = append(files, p)
-				}
-				t := time.Now()
-				r, err := sinkhorn.Barycenter(set.fields, sinkhorn.Settings{Workers: c.Int("threads"), Tol: demoTol})
-				if err != nil {
-					return err
-				}
-				mean := pixelMean(set.fields)
-				gb, gmass, err := gaussBarycenter(set.fields)
-				if err != nil {
-					return err
-				}
-				dx, dy := set.fields[0].PixelSize()
-				gfield := gaussfit.Render(gb, set.fields[0].Rows, set.fields[0].Cols, dx, dy, 1)
-				gfield.Dx, gfield.Dy, gfield.Unit = dx, dy, set.fields[0].Unit
-				_ = gmass
-				outs := map[string]*grid.Field{"barycenter": r.Barycenter, "pixel_mean": mean, "gauss_barycenter": gfield}
-				for name, f := range outs {
-					if err := save(filepath.Join(sub, name+".npy"), f, fieldfile.SaveSettings{}); err != nil {
-						return err
-					}
-					if err := save(filepath.Join(sub, name+".png"), f, fieldfile.SaveSettings{Color: true}); err != nil {
-						return err
-					}
-				}
-				if err := writeOverlay(filepath.Join(sub, "gauss_ellipses.png"), force, set.fields, mean, gb); err != nil {
-					return err
-				}
-				rep := newBaryReport(files, set.fields, nil, sinkhorn.Settings{}, r)
-				if err := writeJSON(filepath.Join(sub, "report.json"), force, rep); err != nil {
-					return err
-				}
-				bm, mm := grid.ComputeMoments(r.Barycenter), grid.ComputeMoments(mean)
-				u := set.fields[0].Unit
-				fmt.Printf("%s: %s\n", set.name, set.what)
-				fmt.Printf("  barycenter: %s in %d iterations (residual %.2g, epsilon %.3g %s^2, %s), %.2fs\n",
-					r.Status, r.Iterations, r.Residual, r.Epsilon, u, map[bool]string{true: "debiased", false: "plain"}[r.Debiased], time.Since(t).Seconds())
-				gm := gaussfit.EllipseOf(gb)
-				fmt.Printf("  spread (sqrt of covariance trace): barycenter %.3g %s, Gaussian barycenter %.3g %s, pixel mean %.3g %s\n",
-					sqrtTrace(bm.Cov), u, math.Hypot(gm.Major, gm.Minor), u, sqrtTrace(mm.Cov), u)
-				fmt.Printf("  centroid: barycenter (%.4g, %.4g) %s, Gaussian barycenter (%.4g, %.4g) %s\n",
-					bm.Mean[0], bm.Mean[1], u, gb.Mean[0], gb.Mean[1], u)
-				fmt.Printf("  pictures: %s, %s, %s, %s\n", filepath.Join(sub, "barycenter.png"), filepath.Join(sub, "gauss_barycenter.png"),
-					filepath.Join(sub, "gauss_ellipses.png"), filepath.Join(sub, "pixel_mean.png"))
-			}
-			// End with a batch over the scenario, as a user runs it daily: one
-			// group per set (a manifest pointing at the inputs just written).
-			man := filepath.Join(dir, "batch_groups.csv")
-			err := fieldfile.WriteAtomic(man, true, func(w io.Writer) error {
-				fmt.Fprintln(w, "group,file")
-				for i, set := range sets {
-					names, _ := filepath.Glob(filepath.Join(batchIn[i], "*.npy"))
-					for _, n := range names {
-						rel, _ := filepath.Rel(dir, n)
-						fmt.Fprintf(w, "%s,%s\n", set.name, rel)
-					}
-				}
-				return nil
-			})
-			if err != nil {
-				return err
-			}
-			bdir := filepath.Join(dir, "batch")
-			groups, err := readManifest(man)
-			if err != nil {
-				return err
-			}
-			s := sinkhorn.Settings{Tol: demoTol, Workers: c.Int("threads")}
-			settings := map[string]any{"tol": demoTol, "demo": true}
-			if err := os.MkdirAll(bdir, 0o755); err != nil {
-				return fmt.Errorf("%s: %v", bdir, err)
-			}
+			// The demo is the daily job on invented data: write the inputs
+			// as files, one folder per group, then run the batch over them.
 			var rows []summaryRow
-			for _, g := range groups {
-				rows = append(rows, processGroup(g, bdir, fieldfile.LoadSettings{}, s, settings, force, ""))
-			}
-			if err := writeSummary(filepath.Join(bdir, "summary.csv"), rows); err != nil {
-				return err
-			}
-			fmt.Printf("batch over the scenario: %s (contact sheets and convergence plots in %s/GROUP/)\n",
-				filepath.Join(bdir, "summary.csv"), bdir)
-			for _, r := range rows {
+			for _, set := range sets {
+				g, err := writeDemoInputs(filepath.Join(dir, "inputs", set.name), set, force)
+				if err != nil {
+					return err
+				}
+				s := sinkhorn.Settings{Tol: demoTol, Workers: c.Int("threads")}
+				settings := map[string]any{"tol": demoTol, "pixel_size": set.load.Dx, "unit": set.load.Unit}
+				r := processGroup(g, dir, set.load, s, settings, force, "")
 				if r.Status == "failed" {
-					return fmt.Errorf("demo batch group %s failed: %s", r.Group, r.Message)
+					return fmt.Errorf("demo group %s failed: %s", set.name, r.Message)
+				}
+				rows = append(rows, r)
+				if err := printDemoGroup(dir, set); err != nil {
+					return err
 				}
 			}
+			if err := writeSummary(filepath.Join(dir, "summary.csv"), rows); err != nil {
+				return err
+			}
+			fmt.Printf("summary: %s (the same as: barygrid batch --out %s %s, with each set's --pixel-size)\n",
+				filepath.Join(dir, "summary.csv"), dir, filepath.Join(dir, "inputs"))
 			return nil
 		},
 	})
 }
 
-func writeOverlay(path string, force bool, fs []*grid.Field, mean *grid.Field, bary gaussfit.Gaussian) error {
-	var gs []gaussfit.Gaussian
-	for _, f := range fs {
-		g, _, err := gaussfit.Fit(f, gaussfit.FitSettings{})
-		if err != nil {
-			return err
-		}
-		gs = append(gs, g)
+// writeDemoInputs saves the set's fields as .npy files. Existing files are
+// kept unless force: the scenario is deterministic, and a user's edits win.
+func writeDemoInputs(sub string, set demoSet, force bool) (group, error) {
+	if err := os.MkdirAll(sub, 0o755); err != nil {
+		return group{}, fmt.Errorf("%s: %v", sub, err)
 	}
-	bg, _ := imagefile.Colorize(mean, imagefile.WriteSettings{})
-	dx, dy := fs[0].PixelSize()
-	im := gaussfit.Overlay(bg, dx, dy, max(1, 512/max(fs[0].Rows, fs[0].Cols)), gs, bary)
-	return fieldfile.WriteAtomic(path, force, func(w io.Writer) error { return png.Encode(w, im) })
+	g := group{Name: set.name}
+	for i, f := range set.fields {
+		p := filepath.Join(sub, fmt.Sprintf("%s_%02d.npy", set.name, i+1))
+		if _, err := os.Stat(p); err != nil || force {
+			if _, err := fieldfile.Save(p, f, fieldfile.SaveSettings{Force: force}); err != nil {
+				return group{}, err
+			}
+		}
+		g.Files = append(g.Files, p)
+	}
+	return g, nil
 }
 
-// demoTol is looser than the command's default: the demo shows the method,
-// and 1e-5 in L1 is invisible in its pictures.
-const demoTol = 1e-5
+// printDemoGroup reads back the group's report and pixel mean and prints
+// how the barycenter, the Gaussian barycenter and the pixel mean compare.
+func printDemoGroup(dir string, set demoSet) error {
+	sub := filepath.Join(dir, set.name)
+	data, err := os.ReadFile(filepath.Join(sub, "report.json"))
+	if err != nil {
+		return fmt.Errorf("%s: %v", sub, unwrapErr(err))
+	}
+	var rep groupReport
+	if err := json.Unmarshal(data, &rep); err != nil || rep.Barycenter == nil || rep.Gaussian == nil {
+		return fmt.Errorf("%s: unreadable report.json", sub)
+	}
+	mean, err := fieldfile.Load(filepath.Join(sub, "pixel_mean.npy"), set.load)
+	if err != nil {
+		return err
+	}
+	b, gm, u := rep.Barycenter, rep.Gaussian, set.load.Unit
+	mm := grid.ComputeMoments(mean)
+	fmt.Printf("%s: %s\n", set.name, set.what)
+	fmt.Printf("  barycenter: %s in %d iterations (residual %.2g, epsilon %.3g %s^2, %s), %.2fs\n",
+		b.Status, b.Iterations, b.Residual, b.Epsilon, u, map[bool]string{true: "debiased", false: "plain"}[b.Debiased], b.Seconds)
+	fmt.Printf("  spread (sqrt of covariance trace): barycenter %.3g %s, Gaussian barycenter %.3g %s, pixel mean %.3g %s\n",
+		sqrtTrace(b.Covariance), u, math.Sqrt(gm.Covariance[0][0]+gm.Covariance[1][1]), u, sqrtTrace(mm.Cov), u)
+	fmt.Printf("  centroid: barycenter (%.4g, %.4g) %s, Gaussian barycenter (%.4g, %.4g) %s\n",
+		b.Centroid[0], b.Centroid[1], u, gm.Mean[0], gm.Mean[1], u)
+	fmt.Printf("  pictures: %s\n", filepath.Join(sub, "{contact_sheet,barycenter,gauss_barycenter,pixel_mean,convergence}.png"))
+	return nil
+}
 
 func floorless(fs []*grid.Field, pct float64) []*grid.Field {
 	for i, f := range fs {
@@ -172,29 +126,4 @@ func floorless(fs []*grid.Field, pct float64) []*grid.Field {
 	return fs
 }
 
-// gaussBarycenter fits every field and returns the fixed-point barycenter.
-func gaussBarycenter(fs []*grid.Field) (gaussfit.Gaussian, float64, error) {
-	var gs []gaussfit.Gaussian
-	var mass float64
-	for _, f := range fs {
-		g, m, err := gaussfit.Fit(f, gaussfit.FitSettings{})
-		if err != nil {
-			return gaussfit.Gaussian{}, 0, err
-		}
-		gs = append(gs, g)
-		mass += m
-	}
-	r, err := gaussfit.Barycenter(gs, gaussfit.Settings{})
-	if err != nil {
-		return gaussfit.Gaussian{}, 0, err
-	}
-	return r.Barycenter, mass / float64(len(fs)), nil
-}
-
-func sqrtTrace(c [2][2]float64) float64 {
-	t := c[0][0] + c[1][1]
-	if t < 0 {
-		return 0
-	}
-	return sqrtf(t)
-}
+func sqrtTrace(c [2][2]float64) float64 { return math.Sqrt(math.Max(0, c[0][0]+c[1][1])) }

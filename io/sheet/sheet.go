@@ -64,7 +64,11 @@ func Contact(tiles []Tile, s Settings) *image.NRGBA {
 	for i, t := range tiles {
 		x := pad + (i%cols)*(th+pad)
 		y := head + (i/cols)*(th+label+pad)
-		thumb := imaging.Fit(t.Image, th, th, imaging.NearestNeighbor)
+		// Scale every picture to the tile, up as well as down, so that
+		// fields and overlays of one grid show at one size.
+		b0 := t.Image.Bounds()
+		sc := math.Min(float64(th)/float64(b0.Dx()), float64(th)/float64(b0.Dy()))
+		thumb := imaging.Resize(t.Image, max(1, int(float64(b0.Dx())*sc)), max(1, int(float64(b0.Dy())*sc)), imaging.NearestNeighbor)
 		b := thumb.Bounds()
 		off := image.Pt(x+(th-b.Dx())/2, y+(th-b.Dy())/2)
 		draw.Draw(sheet, image.Rectangle{off, off.Add(b.Size())}, thumb, b.Min, draw.Src)
