@@ -168,7 +168,6 @@ func parseWeights(v string, n int) ([]float64, error) {
 	return w, nil
 }
 
-
 type imageNRGBA = image.NRGBA
 
 func numCPU() int { return runtime.GOMAXPROCS(0) }
