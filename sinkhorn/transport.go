@@ -27,15 +27,39 @@ type TransportResult struct {
 // over-relaxation as Barycenter. Only Epsilon, Tol, MaxIter, Relax and
 // Workers of s are used.
 func Transport(a, b *grid.Field, s Settings) (*TransportResult, error) {
-	start := time.Now()
 	p, err := setup([]*grid.Field{a, b}, Settings{Epsilon: s.Epsilon, Tol: s.Tol, MaxIter: s.MaxIter, Relax: s.Relax, Workers: s.Workers, Plain: true})
 	if err != nil {
 		return nil, err
 	}
-	la, lb := logOf(p.a[0]), logOf(p.a[1])
+	return logSinkhorn(p.a[0], p.a[1], p, 0)
+}
+
+// logSinkhorn is the two-marginal Sinkhorn iteration in the log domain with
+// epsilon-scaling, balanced (rho = 0) or with KL-relaxed marginals of
+// strength rho. With lambda = rho / (rho + eps) (1 when balanced) and F, G
+// the log-scalings,
+//
+//	F = log a - lambda LSE(G - C/eps),  G = log b - lambda LSE(F - C/eps).
+//
+// Balanced, the reference is the counting measure and the cost is
+// OT = eps (<a, F> + <b, G>). Unbalanced, the reference is a (x) b
+// (Sejourne, Feydy, Vialard, Trouve, Peyre 2019) and the dual value is
+//
+//	OT = rho <a, 1 - (K v)^(1-lambda)> + rho <b, 1 - (K u)^(1-lambda)> - eps (m(P) - m(a) m(b)).
+//
+// The stopping measure is the violation of u K v = a (K v)^(1-lambda),
+// divided by 1 - lambda when unbalanced for the slow mass mode (as in
+// Barycenter).
+func logSinkhorn(a, b []float64, p *problem, rho float64) (*TransportResult, error) {
+	start := time.Now()
+	la, lb := logOf(a), logOf(b)
 	n := p.n
 	F, G := make([]float64, n), make([]float64, n)
-	LKv, LKu, tmp, tmp2 := make([]float64, n), make([]float64, n), make([]float64, n), make([]float64, n)
+	if rho > 0 {
+		copy(F, la)
+		copy(G, lb)
+	}
+	LKv, LKu, tmp := make([]float64, n), make([]float64, n), make([]float64, n)
 	ninf := math.Inf(-1)
 	ext := math.Max(float64(p.cols)*p.dx, float64(p.rows)*p.dy)
 	eps := math.Max(p.eps, ext*ext/10)
@@ -45,6 +69,10 @@ func Transport(a, b *grid.Field, s Settings) (*TransportResult, error) {
 		final := eps <= p.eps
 		if final {
 			eps = p.eps
+		}
+		lam := 1.0
+		if rho > 0 {
+			lam = rho / (rho + eps)
 		}
 		k := NewLogKernel(p.rows, p.cols, p.dx, p.dy, eps)
 		tol := p.tol
@@ -56,18 +84,23 @@ func Transport(a, b *grid.Field, s Settings) (*TransportResult, error) {
 		var hist []float64
 		k.Apply(LKv, G, tmp)
 		for it := 0; it < cap; it++ {
-			// F = log a - LSE(G - C/eps), G = log b - LSE(F - C/eps).
-			logUpdate(F, la, LKv, rl.omega)
+			logUpdate(F, la, LKv, lam, rl.omega)
 			k.Apply(LKu, F, tmp)
-			logUpdate(G, lb, LKu, rl.omega)
-			k.Apply(LKv, G, tmp2)
+			logUpdate(G, lb, LKu, lam, rl.omega)
+			k.Apply(LKv, G, tmp)
 			var r float64
-			for i, x := range p.a[0] {
-				m := 0.0
-				if F[i] != ninf {
-					m = math.Exp(F[i] + LKv[i])
+			for i := range F {
+				if la[i] == ninf {
+					continue
 				}
-				r += math.Abs(m - x)
+				target := a[i]
+				if lam != 1 {
+					target = math.Exp(la[i] + (1-lam)*LKv[i])
+				}
+				r += math.Abs(math.Exp(F[i]+LKv[i]) - target)
+			}
+			if lam != 1 {
+				r /= 1 - lam
 			}
 			total++
 			hist = append(hist, r)
@@ -85,39 +118,59 @@ func Transport(a, b *grid.Field, s Settings) (*TransportResult, error) {
 			if res.Residual <= p.tol {
 				res.Status = Converged
 			}
-			var c float64
-			for i := range F {
-				if p.a[0][i] > 0 {
-					c += p.a[0][i] * F[i]
-				}
-				if p.a[1][i] > 0 {
-					c += p.a[1][i] * G[i]
-				}
-			}
-			res.Cost = eps * c
+			res.Cost = dualValue(a, b, F, G, LKv, LKu, eps, rho, lam)
 			break
 		}
 		if total >= p.maxIter {
 			break
 		}
-		// Potentials f = eps F carry over to the next epsilon.
-		next := eps / 2
+		// The potentials eps F, eps G carry over to the next epsilon.
 		for i := range F {
-			F[i] *= eps / next
-			G[i] *= eps / next
+			F[i] *= 2
+			G[i] *= 2
 		}
-		eps = next
+		eps /= 2
 	}
 	res.Elapsed = time.Since(start)
 	return res, nil
 }
 
-// logUpdate sets X = log m - L (the log of m / K y), over-relaxed by omega
-// in the log domain, where that is a linear blend; -Inf marks zero mass.
-func logUpdate(X, logm, L []float64, omega float64) {
+// dualValue is the transport cost at converged log-scalings (see logSinkhorn).
+func dualValue(a, b, F, G, LKv, LKu []float64, eps, rho, lam float64) float64 {
+	if rho == 0 {
+		var c float64
+		for i := range F {
+			if a[i] > 0 {
+				c += a[i] * F[i]
+			}
+			if b[i] > 0 {
+				c += b[i] * G[i]
+			}
+		}
+		return eps * c
+	}
+	var ma, mb, mp, sa, sb float64
+	for i := range F {
+		ma += a[i]
+		mb += b[i]
+		if a[i] > 0 {
+			mp += math.Exp(F[i] + LKv[i])
+			sa += a[i] * (1 - math.Exp((1-lam)*LKv[i]))
+		}
+		if b[i] > 0 {
+			sb += b[i] * (1 - math.Exp((1-lam)*LKu[i]))
+		}
+	}
+	return rho*sa + rho*sb - eps*(mp-ma*mb)
+}
+
+// logUpdate sets X = log m - lambda L (the log of m (K y)^-lambda),
+// over-relaxed by omega in the log domain, where that is a linear blend;
+// -Inf marks zero mass.
+func logUpdate(X, logm, L []float64, lambda, omega float64) {
 	ninf := math.Inf(-1)
 	for i := range X {
-		t := logm[i] - L[i]
+		t := logm[i] - lambda*L[i]
 		if logm[i] == ninf {
 			t = ninf
 		} else if omega != 1 && X[i] != ninf {
@@ -157,106 +210,6 @@ func Divergence(a, b *grid.Field, s Settings) (float64, []*TransportResult, erro
 	return out[0].Cost - out[1].Cost/2 - out[2].Cost/2, out, nil
 }
 
-// unbalancedCost solves the KL-relaxed entropic problem between a and b
-// with the reference measure a (x) b (Sejourne, Feydy, Vialard, Trouve,
-// Peyre 2019), in the log domain with epsilon-scaling: with
-// lambda = rho / (rho + eps), u~ = a (K v~)^(-lambda) and v~ = b (K u~)^(-lambda),
-// and the dual value
-//
-//	OT = rho <a, 1 - (K v~)^(1-lambda)> + rho <b, 1 - (K u~)^(1-lambda)> - eps (m(P) - m(a) m(b)).
-//
-// a and b are given with their masses (already in the caller's units).
-func unbalancedCost(a, b []float64, p *problem, rho float64) (*TransportResult, error) {
-	start := time.Now()
-	la, lb := logOf(a), logOf(b)
-	n := p.n
-	F, G := make([]float64, n), make([]float64, n)
-	copy(F, la)
-	copy(G, lb)
-	LKv, LKu, tmp := make([]float64, n), make([]float64, n), make([]float64, n)
-	ninf := math.Inf(-1)
-	ext := math.Max(float64(p.cols)*p.dx, float64(p.rows)*p.dy)
-	eps := math.Max(p.eps, ext*ext/10)
-	res := &TransportResult{Status: IterationLimit}
-	total := 0
-	for {
-		final := eps <= p.eps
-		if final {
-			eps = p.eps
-		}
-		lam := rho / (rho + eps)
-		k := NewLogKernel(p.rows, p.cols, p.dx, p.dy, eps)
-		tol := p.tol
-		cap := p.maxIter - total
-		if !final {
-			tol, cap = math.Max(p.tol, 1e-3), min(cap, 300)
-		}
-		var last float64
-		k.Apply(LKv, G, tmp)
-		for it := 0; it < cap; it++ {
-			for i := range F {
-				F[i] = la[i] - lam*LKv[i]
-				if la[i] == ninf {
-					F[i] = ninf
-				}
-			}
-			k.Apply(LKu, F, tmp)
-			for i := range G {
-				G[i] = lb[i] - lam*LKu[i]
-				if lb[i] == ninf {
-					G[i] = ninf
-				}
-			}
-			k.Apply(LKv, G, tmp)
-			// Violation of u~ K v~ = a (K v~)^(1-lambda), scaled by
-			// 1/(1-lambda) for the slow mass mode (as in Barycenter).
-			var r float64
-			for i := range F {
-				if la[i] == ninf {
-					continue
-				}
-				r += math.Abs(math.Exp(F[i]+LKv[i]) - math.Exp(la[i]+(1-lam)*LKv[i]))
-			}
-			r /= 1 - lam
-			total++
-			last = r
-			if math.IsNaN(r) {
-				res.Status = NumericalFailure
-				return res, fmt.Errorf("sinkhorn: unbalanced transport residual became NaN at epsilon %g", eps)
-			}
-			if r <= tol {
-				break
-			}
-		}
-		res.Iterations, res.Residual = total, last
-		if final {
-			if last <= p.tol {
-				res.Status = Converged
-			}
-			var ma, mb, mp, sa, sb float64
-			for i := range F {
-				ma += a[i]
-				mb += b[i]
-				if la[i] != ninf {
-					mp += math.Exp(F[i] + LKv[i])
-					sa += a[i] * (1 - math.Exp((1-lam)*LKv[i]))
-				}
-				if lb[i] != ninf {
-					sb += b[i] * (1 - math.Exp((1-lam)*LKu[i]))
-				}
-			}
-			res.Cost = rho*sa + rho*sb - eps*(mp-ma*mb)
-			break
-		}
-		if total >= p.maxIter {
-			break
-		}
-		eps /= 2
-	}
-	res.Elapsed = time.Since(start)
-	return res, nil
-}
-
 // UnbalancedDivergence returns the unbalanced Sinkhorn divergence with KL
 // penalty rho (Sejourne et al. 2019):
 // S = OT(a, b) - OT(a, a)/2 - OT(b, b)/2 + eps/2 (m(a) - m(b))^2,
@@ -281,7 +234,7 @@ func UnbalancedDivergence(a, b *grid.Field, rho float64, s Settings) (float64, [
 	out := make([]*TransportResult, 3)
 	errs := make([]error, 3)
 	grid.Parallel(3, s.Workers, func(i int) {
-		out[i], errs[i] = unbalancedCost(pairs[i][0], pairs[i][1], p, rho)
+		out[i], errs[i] = logSinkhorn(pairs[i][0], pairs[i][1], p, rho)
 	})
 	for _, e := range errs {
 		if e != nil {
