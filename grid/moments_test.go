@@ -112,7 +112,12 @@ func TestValidate(t *testing.T) {
 	}
 }
 
-func TestResampleKeepsMassAndCentroid(t *testing.T) {
+// Resampling keeps the physical moments: a sampled Gaussian of variance 25
+// (in the source's pixels) keeps its centroid and variance in physical units
+// at the finer grid; linear interpolation adds at most a few percent of a
+// source pixel squared (common practice, no source). Mass is restored by
+// construction and so not checked here.
+func TestResampleKeepsMoments(t *testing.T) {
 	f := New(40, 40)
 	for r := 0; r < 40; r++ {
 		for c := 0; c < 40; c++ {
@@ -124,12 +129,17 @@ func TestResampleKeepsMassAndCentroid(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	if math.Abs(g.Mass()-f.Mass()) > 1e-9*f.Mass() {
-		t.Errorf("mass %g, want %g", g.Mass(), f.Mass())
+	if math.Abs(g.Dx-0.5) > 1e-12 {
+		t.Errorf("pixel size %g, want 0.5", g.Dx)
 	}
-	mf, mg := ComputeMoments(f), ComputeMoments(g)
-	if math.Abs(mf.Mean[0]-mg.Mean[0]) > 1e-9 || math.Abs(mf.Cov[0][0]-mg.Cov[0][0]) > 0.3 {
-		t.Errorf("moments moved: %v %v -> %v %v", mf.Mean, mf.Cov, mg.Mean, mg.Cov)
+	m := ComputeMoments(g)
+	if math.Abs(m.Mean[0]-19.5) > 1e-9 || math.Abs(m.Mean[1]-19.5) > 1e-9 {
+		t.Errorf("centroid %v, want (19.5, 19.5)", m.Mean)
+	}
+	for i := 0; i < 2; i++ {
+		if math.Abs(m.Cov[i][i]-25) > 0.25 {
+			t.Errorf("variance %g, want 25 within 1%%", m.Cov[i][i])
+		}
 	}
 }
 
