@@ -32,11 +32,16 @@ func (m Method) String() string {
 	return "auto"
 }
 
-// Status tells how an iteration ended.
+// Status tells how an iteration ended. Its zero value, NotTerminated,
+// means the solver did not finish; every exit path sets another.
 type Status int
 
 const (
-	Converged Status = iota
+	NotTerminated Status = iota
+	// Converged: the first-marginal violation at the target epsilon on the
+	// full grid, and for a debiased barycenter the debiasing field's
+	// violation too, are at most Tol.
+	Converged
 	IterationLimit
 	NumericalFailure
 )
@@ -47,8 +52,18 @@ func (s Status) String() string {
 		return "converged"
 	case IterationLimit:
 		return "iteration limit"
+	case NumericalFailure:
+		return "numerical failure"
 	}
-	return "numerical failure"
+	return "not terminated"
+}
+
+// Err returns nil for Converged and an error naming the status otherwise.
+func (s Status) Err() error {
+	if s == Converged {
+		return nil
+	}
+	return fmt.Errorf("sinkhorn: %v", s)
 }
 
 // Settings of a barycenter computation. The zero value is the default.
@@ -59,13 +74,16 @@ type Settings struct {
 	// Weights of the inputs, non-negative; nil means equal. They are
 	// normalised to sum 1.
 	Weights []float64
-	// Tol is the target first-marginal violation; zero means 1e-6.
+	// Tol is the target first-marginal violation (L1, inputs of unit mass);
+	// zero means 1e-6. A debiased barycenter must also bring the debiasing
+	// field's violation |d K d - b|_1 below Tol to count as converged.
 	Tol float64
-	// MaxIter caps iterations (all epsilon stages together); zero means 10000.
+	// MaxIter caps iterations, all levels and epsilon stages together;
+	// zero means 10000.
 	MaxIter int
 	// Plain computes the plain entropic barycenter instead of the debiased one.
 	Plain bool
-	// Method chooses the iteration; the zero value is MethodAuto.
+	// Method chooses the representation; the zero value is MethodAuto.
 	Method Method
 	// Relax is the over-relaxation factor omega in (0, 2) for the scaling
 	// updates (Thibault, Chizat, Dossal, Papadakis 2017): 1 is the plain
@@ -74,6 +92,9 @@ type Settings struct {
 	// Workers bounds the goroutines; zero means GOMAXPROCS. Results are
 	// bit-identical for any value.
 	Workers int
+	// SingleScale turns off the coarse-to-fine pyramid: every epsilon stage
+	// then runs on the full grid. Zero (false) means coarse-to-fine.
+	SingleScale bool
 	// Unbalanced, when positive, relaxes the marginal constraints to
 	// penalties Unbalanced * KL (Chizat, Peyre, Schmitzer, Vialard, Math.
 	// Comp. 2018), in the cost's squared units: inputs keep their masses and
@@ -86,12 +107,27 @@ type Settings struct {
 	// DropOutside.
 	Mask        *grid.Field
 	DropOutside bool
-	// Warm starts the iteration from the scalings of an earlier result on
+	// Warm starts the iteration from the potentials of an earlier result on
 	// the same grid, epsilon and number of inputs (for example the previous
 	// frame of a morph); nil starts cold.
 	Warm *WarmStart
-	// Progress, when set, is called after every iteration.
+	// Progress, when set, is called after every iteration with the running
+	// iteration count and the current stage's residual.
 	Progress func(iter int, residual float64)
+}
+
+// Stage reports one epsilon stage of the solve: the pyramid level it ran on
+// (0 is the full grid), that level's shape, its epsilon and representation,
+// and how far it got.
+type Stage struct {
+	Level          int
+	Rows, Cols     int
+	Epsilon        float64
+	Method         Method
+	Iterations     int
+	Residual       float64
+	DebiasResidual float64
+	Elapsed        time.Duration
 }
 
 // Result of a barycenter computation.
@@ -100,9 +136,11 @@ type Result struct {
 	Barycenter *grid.Field
 	Status     Status
 	// Message explains a numerical failure or an iteration limit in words.
-	Message    string
-	Iterations int
-	// Residual is the final first-marginal violation; Residuals the history.
+	Message string
+	// Iterations counts all stages; FinestIterations those on the full grid.
+	Iterations, FinestIterations int
+	// Residual is the final first-marginal violation; Residuals the history
+	// over all stages.
 	Residual  float64
 	Residuals []float64
 	// DebiasResidual is |d K d - b|_1 for the debiased barycenter, the
@@ -111,13 +149,18 @@ type Result struct {
 	Elapsed        time.Duration
 	Epsilon        float64
 	Debiased       bool
-	// Method is the iteration that produced the result.
+	// Method is the representation of the last stage.
 	Method Method
 	// Relax is the over-relaxation factor used at the end.
 	Relax float64
-	// Band is the kernel's half-width in pixels in the scaling iteration
-	// (the largest of the two axes), after any widening.
+	// Band is the scaling kernel's half-width in pixels in the last stage
+	// (the larger of the two axes; 0 when the last stage ran in the log
+	// domain).
 	Band int
+	// Levels is the number of pyramid levels used (1: full grid only);
+	// Stages lists every epsilon stage in order.
+	Levels int
+	Stages []Stage
 	// InputMasses are the inputs' masses as given; Dropped the mass of each
 	// input removed outside the mask (DropOutside).
 	InputMasses, Dropped []float64
@@ -125,25 +168,26 @@ type Result struct {
 	// unbalanced ones the mass the formulation gives, in the units of the
 	// inputs (Barycenter itself is then scaled to that mass).
 	Mass float64
-	// Warm holds the final scalings, to warm-start a related problem.
+	// Warm holds the final potentials, to warm-start a related problem.
 	Warm *WarmStart
-	// Switched reports that MethodAuto moved to the log domain.
+	// Switched reports that MethodAuto moved a stage to the log domain
+	// after the scaling iteration failed there.
 	Switched bool
 }
 
-// WarmStart is the state a solve can start from: the log-scalings
-// (potentials over epsilon) of the second marginals and of the debiasing
-// field.
+// WarmStart is the state a solve can start from: the potentials (epsilon
+// times the log-scalings) of the second marginals and of the debiasing
+// field, on the full grid.
 type WarmStart struct {
 	rows, cols int
 	eps        float64
-	logV       [][]float64
-	logD       []float64
+	g          [][]float64
+	d          []float64
 }
 
 func (w *WarmStart) fits(p *problem) bool {
-	return w != nil && w.rows == p.rows && w.cols == p.cols && w.eps == p.eps && len(w.logV) == len(p.a) &&
-		(p.debias == (w.logD != nil))
+	return w != nil && w.rows == p.rows && w.cols == p.cols && w.eps == p.eps && len(w.g) == len(p.w) &&
+		(p.debias == (w.d != nil))
 }
 
 // DefaultEpsilon is the epsilon used when Settings leaves it zero: the square
@@ -165,21 +209,28 @@ var (
 type problem struct {
 	rows, cols, n int
 	dx, dy        float64
-	a             [][]float64
+	a             [][]float64 // inputs on the full grid (unit mass, or scaled when unbalanced)
+	target        []float64   // fixed second marginal (transport); nil for a barycenter
 	w             []float64
 	eps, tol      float64
 	maxIter       int
 	debias        bool
 	workers       int
+	method        Method
+	singleScale   bool
 	warm          *WarmStart
 	progress      func(int, float64)
 	relax         float64
+	rho           float64 // unbalanced penalty; 0 when balanced
+	product       bool    // unbalanced with reference a (x) b (transport)
 	lambda        float64 // rho / (rho + eps); 1 when balanced
 	rawMass       float64 // mass of b before normalisation
 	refMass       float64 // total mass Z of the kernel (unbalanced only)
 	mask          []bool
 	masses        []float64
 	dropped       []float64
+	spreadCache   float64   // spread() once computed; -1 before
+	last          iteration // the final stage's state
 }
 
 func setup(fields []*grid.Field, s Settings) (*problem, error) {
@@ -189,7 +240,7 @@ func setup(fields []*grid.Field, s Settings) (*problem, error) {
 	f0 := fields[0]
 	dx, dy := f0.PixelSize()
 	p := &problem{rows: f0.Rows, cols: f0.Cols, n: f0.Rows * f0.Cols, dx: dx, dy: dy,
-		eps: s.Epsilon, tol: s.Tol, maxIter: s.MaxIter, debias: !s.Plain,
+		eps: s.Epsilon, tol: s.Tol, maxIter: s.MaxIter, debias: !s.Plain, method: s.Method, singleScale: s.SingleScale,
 		workers: s.Workers, progress: s.Progress, relax: s.Relax, warm: s.Warm}
 	if err := grid.SameShape(fields, nil); err != nil {
 		return nil, err
@@ -258,6 +309,7 @@ func setup(fields []*grid.Field, s Settings) (*problem, error) {
 		return nil, fmt.Errorf("%w: epsilon must be positive and finite, got %g", ErrInput, p.eps)
 	}
 	if s.Unbalanced > 0 && !math.IsInf(s.Unbalanced, 1) {
+		p.rho = s.Unbalanced
 		p.lambda = s.Unbalanced / (s.Unbalanced + p.eps)
 		p.debias = false
 		// Unbalanced inputs keep their masses relative to the first:
@@ -276,22 +328,30 @@ func setup(fields []*grid.Field, s Settings) (*problem, error) {
 			}
 		}
 	}
+	if err := p.checkLimits(); err != nil {
+		return nil, err
+	}
+	return p, nil
+}
+
+// checkLimits fills in the default tolerance and cap and checks them.
+func (p *problem) checkLimits() error {
 	if p.tol == 0 {
 		p.tol = 1e-6
 	}
 	if !(p.tol > 0) {
-		return nil, fmt.Errorf("%w: tolerance must be positive, got %g", ErrInput, p.tol)
+		return fmt.Errorf("%w: tolerance must be positive, got %g", ErrInput, p.tol)
 	}
 	if p.maxIter == 0 {
 		p.maxIter = 10000
 	}
 	if p.maxIter < 0 {
-		return nil, fmt.Errorf("%w: iteration cap must be positive, got %d", ErrInput, p.maxIter)
+		return fmt.Errorf("%w: iteration cap must be positive, got %d", ErrInput, p.maxIter)
 	}
 	if p.relax != 0 && !(p.relax > 0 && p.relax < 2) {
-		return nil, fmt.Errorf("%w: over-relaxation must lie in (0, 2), got %g", ErrInput, p.relax)
+		return fmt.Errorf("%w: over-relaxation must lie in (0, 2), got %g", ErrInput, p.relax)
 	}
-	return p, nil
+	return nil
 }
 
 // kernelMass returns sum_{i,j} exp(-h^2 (i-j)^2 / eps) over an n-point axis.
@@ -378,34 +438,20 @@ func normWeights(w []float64, k int) ([]float64, error) {
 // (Benamou et al. 2015; Janati et al. 2020 for d). After each iteration the
 // second marginals equal b exactly; the first-marginal violation, measured
 // with the K v_k that the next iteration needs anyway, is the stopping rule.
+//
+// The solve runs coarse to fine: a pyramid of 2 x 2 block sums, epsilon
+// halved from a large value stage by stage, each stage on the coarsest
+// level whose pixel is no larger than sqrt(epsilon), and the potentials
+// carried to the next stage (interpolated to the finer grid when the level
+// changes). Only the last stages run on the full grid.
 func Barycenter(fields []*grid.Field, s Settings) (*Result, error) {
 	start := time.Now()
 	p, err := setup(fields, s)
 	if err != nil {
 		return nil, err
 	}
-	var res *Result
-	switch s.Method {
-	case MethodScaling:
-		res = p.scaling(false)
-	case MethodLog:
-		res = p.logDomain(nil)
-	default:
-		if p.needsLog() {
-			res = p.coarseThenLog()
-		} else {
-			res = p.scaling(true)
-			if res.Status == NumericalFailure {
-				hist := res.Residuals
-				res = p.logDomain(nil)
-				res.Switched = true
-				res.Residuals = append(hist, res.Residuals...)
-				res.Iterations += len(hist)
-			}
-		}
-	}
+	res := p.solve()
 	res.Elapsed = time.Since(start)
-	res.Epsilon = p.eps
 	res.Debiased = p.debias
 	res.InputMasses, res.Dropped = p.masses, p.dropped
 	res.Mass = 1
@@ -421,56 +467,23 @@ func Barycenter(fields []*grid.Field, s Settings) (*Result, error) {
 	return res, nil
 }
 
-// needsLog predicts scaling-domain failure: when the kernel between the
-// inputs' centroids is below 1e-200, the scalings must span more than the
-// float64 range (exp(-460)) to move that mass.
-func (p *problem) needsLog() bool { return p.spread()/p.eps > 460 }
-
-// coarseThenLog solves the first epsilon stages with the scaling iteration,
-// at the smallest epsilon (target times a power of two) where it is
-// predicted safe, and hands its scalings to the log-domain iteration for the
-// remaining halvings. Large-epsilon stages are the log domain's most costly
-// (wide kernels, many terms per output) and the scaling iteration's
-// cheapest, so the switch costs nothing in accuracy and most of the time.
-func (p *problem) coarseThenLog() *Result {
-	epsS := p.eps
-	for epsS*460 < p.spread() {
-		epsS *= 2
-	}
-	q := *p
-	q.eps, q.tol, q.maxIter, q.warm, q.progress = epsS, math.Max(p.tol, 1e-4), min(p.maxIter/2, 2000), nil, nil
-	coarse := q.scaling(true)
-	if coarse.Status == NumericalFailure || coarse.Warm == nil {
-		return p.logDomain(nil)
-	}
-	rest := *p
-	rest.maxIter = p.maxIter - coarse.Iterations
-	p = &rest
-	start := &warm{g: coarse.Warm.logV, ld: coarse.Warm.logD, eps: epsS}
-	start.f = make([][]float64, len(p.a))
-	for k := range start.f {
-		start.f[k] = make([]float64, p.n)
-	}
-	res := p.logDomain(start)
-	res.Residuals = append(coarse.Residuals, res.Residuals...)
-	res.Iterations += coarse.Iterations
-	return res
-}
-
 // spread is the squared distance that mass must travel, as predicted from
-// the inputs' moments: the half distance between centroids plus both spreads.
-func (p *problem) spread() float64 {
+// the inputs' moments: the half distance between centroids plus both
+// spreads. When it exceeds 460 epsilon the kernel between the places that
+// exchange mass is below 1e-200 and the scalings must span more than the
+// float64 range, so the scaling representation would fail.
+func spread(a [][]float64, rows, cols int, dx, dy float64) float64 {
 	var ms []grid.Moments
-	for _, a := range p.a {
-		ms = append(ms, grid.ComputeMoments(&grid.Field{Rows: p.rows, Cols: p.cols, Data: a, Dx: p.dx, Dy: p.dy}))
+	for _, x := range a {
+		ms = append(ms, grid.ComputeMoments(&grid.Field{Rows: rows, Cols: cols, Data: x, Dx: dx, Dy: dy}))
 	}
 	var worst float64
 	for i := range ms {
 		for j := range ms {
-			dx := ms[i].Mean[0] - ms[j].Mean[0]
-			dy := ms[i].Mean[1] - ms[j].Mean[1]
+			ddx := ms[i].Mean[0] - ms[j].Mean[0]
+			ddy := ms[i].Mean[1] - ms[j].Mean[1]
 			// Half the distance: the barycenter sits between them.
-			d2 := (dx*dx + dy*dy) / 4
+			d2 := (ddx*ddx + ddy*ddy) / 4
 			sd := math.Sqrt(ms[i].Cov[0][0]+ms[i].Cov[1][1]) + math.Sqrt(ms[j].Cov[0][0]+ms[j].Cov[1][1])
 			d2 += sd * sd
 			worst = math.Max(worst, d2)

@@ -1,0 +1,560 @@
+package sinkhorn
+
+import (
+	"fmt"
+	"math"
+	"time"
+
+	"barygrid/grid"
+)
+
+// The driver owns the loop that every problem (barycenter plain, debiased,
+// unbalanced or masked; transport) and every representation (scalings, log
+// domain) share: the pyramid of levels, the epsilon stages, the stopping
+// rule, the residual history, progress, over-relaxation, health checks and
+// the final status. A representation only knows how to take one step.
+
+// iteration is one representation of the Sinkhorn state on one level at one
+// epsilon.
+type iteration interface {
+	// step runs one round of updates and returns the first-marginal violation.
+	step(omega float64) float64
+	// debiasResidual is |d K d - b|_1 before the last d update (0 when plain).
+	debiasResidual() float64
+	// health returns "" while the representation is exact; strict asks for
+	// the safe range, not only for finite values.
+	health(strict bool) string
+	// verify checks the residual with the untruncated kernel where the
+	// representation truncates it; widened reports that the kernel changed
+	// and the iteration must go on before anything is concluded.
+	verify(r, tol float64) (resid float64, widened bool)
+	// state returns the potentials to start the next stage from.
+	state() *potentials
+	// logB is log b, the current second marginal.
+	logB() []float64
+	// duals returns log u, log v, log K v, log K u of the single pair of a
+	// transport problem.
+	duals() (F, G, LKv, LKu []float64)
+	method() Method
+	band() int
+}
+
+// potentials carry a solve from one stage to the next: epsilon times the
+// log-scalings of the second marginals (g_k) and of the debiasing field (d),
+// in the cost's units, on a given level.
+type potentials struct {
+	level int
+	g     [][]float64
+	d     []float64
+}
+
+// level is one grid of the pyramid; level 0 is the full grid.
+type level struct {
+	rows, cols, n int
+	dx, dy        float64
+	a, la         [][]float64
+	target, lt    []float64 // fixed second marginal and its log (transport)
+	mask          []bool
+}
+
+// stagePlan is one epsilon stage: its level and epsilon.
+type stagePlan struct {
+	level int
+	eps   float64
+}
+
+const (
+	// checkEvery is how often a truncated kernel is checked.
+	checkEvery = 100
+	// stageTol and stageCap bound the stages before the last: they only
+	// need a starting point for the next.
+	stageTol = 1e-3
+	stageCap = 300
+	// minSide: the pyramid stops before a side would fall below it.
+	minSide = 8
+)
+
+func (p *problem) fullLevel() *level {
+	lv := &level{rows: p.rows, cols: p.cols, n: p.n, dx: p.dx, dy: p.dy, a: p.a, target: p.target, mask: p.mask}
+	lv.fillLogs()
+	return lv
+}
+
+func (lv *level) fillLogs() {
+	lv.la = make([][]float64, len(lv.a))
+	for k, a := range lv.a {
+		lv.la[k] = logOf(a)
+	}
+	if lv.target != nil {
+		lv.lt = logOf(lv.target)
+	}
+}
+
+// pyramid returns the levels, finest first: 2 x 2 block sums, the pixel
+// size doubling per level (Schmitzer, SIAM J. Sci. Comput. 41(3), 2019).
+// An odd last row or column forms blocks of its own; a coarse pixel is
+// allowed by the mask when any of its fine pixels is.
+func (p *problem) pyramid(maxLevels int) []*level {
+	lvs := []*level{p.fullLevel()}
+	for len(lvs) < maxLevels {
+		f := lvs[len(lvs)-1]
+		rc, cc := (f.rows+1)/2, (f.cols+1)/2
+		if min(rc, cc) < minSide {
+			break
+		}
+		c := &level{rows: rc, cols: cc, n: rc * cc, dx: 2 * f.dx, dy: 2 * f.dy}
+		sum := func(x []float64) []float64 {
+			out := make([]float64, c.n)
+			for r := 0; r < f.rows; r++ {
+				for q := 0; q < f.cols; q++ {
+					out[(r/2)*cc+q/2] += x[r*f.cols+q]
+				}
+			}
+			return out
+		}
+		for _, a := range f.a {
+			c.a = append(c.a, sum(a))
+		}
+		if f.target != nil {
+			c.target = sum(f.target)
+		}
+		if f.mask != nil {
+			c.mask = make([]bool, c.n)
+			for r := 0; r < f.rows; r++ {
+				for q := 0; q < f.cols; q++ {
+					c.mask[(r/2)*cc+q/2] = c.mask[(r/2)*cc+q/2] || f.mask[r*f.cols+q]
+				}
+			}
+		}
+		c.fillLogs()
+		lvs = append(lvs, c)
+	}
+	return lvs
+}
+
+// schedule returns the epsilon stages: epsilon halves from a tenth of the
+// squared extent of the grid (where transport is easy) to the target
+// (Kosowsky & Yuille 1994; Schmitzer 2019), and each stage runs on the
+// coarsest level whose pixel is no larger than sqrt(epsilon), so that the
+// level resolves the blur of its epsilon; the last stage runs on level 0.
+func (p *problem) schedule(levels []*level) []stagePlan {
+	ext := math.Max(float64(p.cols)*p.dx, float64(p.rows)*p.dy)
+	eps := math.Max(p.eps, ext*ext/10)
+	var plan []stagePlan
+	for {
+		if eps <= p.eps*(1+1e-12) {
+			plan = append(plan, stagePlan{0, p.eps})
+			return plan
+		}
+		l := 0
+		for l+1 < len(levels) {
+			h := math.Max(levels[l+1].dx, levels[l+1].dy)
+			if h*h > eps {
+				break
+			}
+			l++
+		}
+		plan = append(plan, stagePlan{l, eps})
+		eps /= 2
+	}
+}
+
+// solve runs the stages and returns the result on the full grid.
+func (p *problem) solve() *Result {
+	maxLevels := 16
+	if p.singleScale || p.rho > 0 {
+		// Unbalanced problems scale their inputs by the kernel mass of the
+		// full grid (see setup), which differs on coarser grids.
+		maxLevels = 1
+	}
+	levels := p.pyramid(maxLevels)
+	plan := p.schedule(levels)
+	var pot *potentials
+	if p.warm.fits(p) {
+		// A warm start is already at the target epsilon on the full grid.
+		plan = []stagePlan{{0, p.eps}}
+		pot = &potentials{g: p.warm.g, d: p.warm.d}
+	}
+	res := &Result{Epsilon: p.eps, Method: MethodLog}
+	used := map[int]bool{}
+	p.spreadCache = -1
+	var it iteration
+	for si, sp := range plan {
+		lv := levels[sp.level]
+		used[sp.level] = true
+		if pot != nil && pot.level != sp.level {
+			pot = upsample(pot, levels, sp.level)
+		}
+		final := si == len(plan)-1
+		tol, budget := p.tol, p.maxIter-res.Iterations
+		if !final {
+			tol, budget = math.Max(p.tol, stageTol), min(budget, stageCap)
+		}
+		if budget <= 0 {
+			res.Status = IterationLimit
+			res.Message = fmt.Sprintf("iteration cap %d reached at epsilon %g on level %d, before the target epsilon %g on the full grid",
+				p.maxIter, sp.eps, sp.level, p.eps)
+			break
+		}
+		var status Status
+		it, status = p.runStage(lv, sp, pot, tol, budget, final, res)
+		if status == NumericalFailure {
+			break
+		}
+		pot = it.state()
+		pot.level = sp.level
+		if final {
+			res.Status = status
+			if status == IterationLimit {
+				res.Message = fmt.Sprintf("stopped after %d iterations at residual %.3g (tolerance %.3g)", res.Iterations, res.Residual, p.tol)
+				if p.debias {
+					res.Message += fmt.Sprintf(", debiasing residual %.3g", res.DebiasResidual)
+				}
+			}
+		}
+	}
+	res.Levels = len(used)
+	if it != nil && res.Status != NumericalFailure {
+		lb := it.logB()
+		res.Barycenter = p.output(lb)
+		res.Band = it.band()
+		res.Warm = &WarmStart{rows: p.rows, cols: p.cols, eps: p.eps, g: pot.g, d: pot.d}
+		p.last = it
+	}
+	if res.Status == NotTerminated {
+		// Every path above sets a status; this guards the promise.
+		res.Status = NumericalFailure
+		res.Message = "solver stopped without a status"
+	}
+	return res
+}
+
+// runStage solves one stage, choosing the representation: the scaling one
+// where it is predicted exact (or forced), else the log domain; a scaling
+// stage that fails is run again in the log domain from the same start
+// (MethodAuto) or reported (MethodScaling).
+func (p *problem) runStage(lv *level, sp stagePlan, pot *potentials, tol float64, budget int, final bool, res *Result) (iteration, Status) {
+	useScaling := p.method == MethodScaling || (p.method == MethodAuto && p.spread()/sp.eps <= 460)
+	relax := p.relax
+	for {
+		var it iteration
+		if useScaling {
+			if s := newScalingIter(p, lv, sp.eps, pot); s != nil {
+				it = s
+			} else if p.method == MethodScaling {
+				res.Status, res.Message = NumericalFailure, fmt.Sprintf("epsilon %g too small for the scaling iteration: the potentials leave its range", sp.eps)
+				return nil, NumericalFailure
+			}
+		}
+		if it == nil {
+			it = newLogIter(p, lv, sp.eps, pot)
+		}
+		st, omega, msg := p.iterate(it, lv, sp, tol, budget, final, relax, res)
+		if st != NumericalFailure {
+			res.Method, res.Relax = it.method(), omega
+			return it, st
+		}
+		switch {
+		case it.method() == MethodScaling && omega != 1 && relax == 0:
+			// Over-relaxation can push scalings out of range on the way.
+			relax = 1
+		case it.method() == MethodScaling && p.method == MethodAuto:
+			useScaling = false
+			res.Switched = true
+		default:
+			res.Status, res.Message = NumericalFailure, msg
+			return it, NumericalFailure
+		}
+		budget = min(budget, p.maxIter-res.Iterations)
+		if budget <= 0 {
+			res.Status, res.Message = NumericalFailure, msg
+			return it, NumericalFailure
+		}
+	}
+}
+
+// iterate is the loop of one stage. It returns the stage's status, the
+// final relaxation factor and, on failure, the reason.
+func (p *problem) iterate(it iteration, lv *level, sp stagePlan, tol float64, budget int, final bool, relax float64, res *Result) (Status, float64, string) {
+	start := time.Now()
+	rl := newRelaxation(relax)
+	stage := Stage{Level: sp.level, Rows: lv.rows, Cols: lv.cols, Epsilon: sp.eps, Method: it.method()}
+	var hist []float64
+	status := NotTerminated
+	msg := ""
+	for n := 0; ; n++ {
+		if n >= budget {
+			status = IterationLimit
+			break
+		}
+		r := it.step(rl.omega)
+		res.Iterations++
+		if sp.level == 0 {
+			res.FinestIterations++
+		}
+		stage.Iterations++
+		res.Residuals = append(res.Residuals, r)
+		hist = append(hist, r)
+		res.Residual, res.DebiasResidual = r, it.debiasResidual()
+		stage.Residual, stage.DebiasResidual = r, it.debiasResidual()
+		if p.progress != nil {
+			p.progress(res.Iterations, r)
+		}
+		if m := it.health(rl.omega == 1); m != "" || math.IsNaN(r) || math.IsInf(r, 0) {
+			if m == "" {
+				m = fmt.Sprintf("residual became %v at epsilon %g", r, sp.eps)
+			}
+			status, msg = NumericalFailure, m
+			break
+		}
+		if r <= tol || (n+1)%checkEvery == 0 {
+			r2, widened := it.verify(r, tol)
+			if widened {
+				continue
+			}
+			r = r2
+			res.Residual, stage.Residual = r, r
+		}
+		if r <= tol && (!final || !p.debias || it.debiasResidual() <= tol) {
+			status = Converged
+			break
+		}
+		rl.update(hist)
+	}
+	stage.Elapsed = time.Since(start)
+	res.Stages = append(res.Stages, stage)
+	return status, rl.omega, msg
+}
+
+// spread is the inputs' spread() of the full grid, computed once.
+func (p *problem) spread() float64 {
+	if p.spreadCache < 0 {
+		a := p.a
+		if p.target != nil {
+			a = [][]float64{p.a[0], p.target}
+		}
+		p.spreadCache = spread(a, p.rows, p.cols, p.dx, p.dy)
+	}
+	return p.spreadCache
+}
+
+// upsample carries potentials to a finer level by bilinear interpolation of
+// the potentials (Schmitzer 2019; Feydy 2020): fine pixel r lies at coarse
+// coordinate (r - 0.5) / 2 on each finer level. Where the coarse potential is
+// -Inf (zero mass, outside a mask) only the finite neighbours count.
+func upsample(pot *potentials, levels []*level, to int) *potentials {
+	for pot.level > to {
+		c, f := levels[pot.level], levels[pot.level-1]
+		up := func(x []float64) []float64 {
+			if x == nil {
+				return nil
+			}
+			out := make([]float64, f.n)
+			for r := 0; r < f.rows; r++ {
+				y := math.Min(math.Max((float64(r)-0.5)/2, 0), float64(c.rows-1))
+				r0 := min(int(y), c.rows-2)
+				r0 = max(r0, 0)
+				ty := y - float64(r0)
+				for q := 0; q < f.cols; q++ {
+					xx := math.Min(math.Max((float64(q)-0.5)/2, 0), float64(c.cols-1))
+					q0 := max(min(int(xx), c.cols-2), 0)
+					tx := xx - float64(q0)
+					var s, ws float64
+					for _, nb := range [4]struct {
+						r, q int
+						w    float64
+					}{{r0, q0, (1 - ty) * (1 - tx)}, {r0, q0 + 1, (1 - ty) * tx}, {r0 + 1, q0, ty * (1 - tx)}, {r0 + 1, q0 + 1, ty * tx}} {
+						if nb.r >= c.rows || nb.q >= c.cols || nb.w == 0 {
+							continue
+						}
+						v := x[nb.r*c.cols+nb.q]
+						if math.IsInf(v, 0) || math.IsNaN(v) {
+							continue
+						}
+						s += nb.w * v
+						ws += nb.w
+					}
+					if ws > 0 {
+						out[r*f.cols+q] = s / ws
+					} else {
+						out[r*f.cols+q] = math.Inf(-1)
+					}
+				}
+			}
+			return out
+		}
+		next := &potentials{level: pot.level - 1, d: up(pot.d)}
+		for _, g := range pot.g {
+			next.g = append(next.g, up(g))
+		}
+		pot = next
+	}
+	return pot
+}
+
+// relaxation tracks the over-relaxation factor. In auto mode it starts at 1,
+// estimates the contraction rate rho of the plain iteration from the residual
+// history, and moves to omega = 2 / (1 + sqrt(1 - rho)), the optimum for a
+// linear fixed-point iteration of rate rho (Young's SOR theory, as applied to
+// Sinkhorn by Lehmann, von Renesse, Sambale, Uschmajew 2021). If the residual
+// then grows, it falls back to 1 for good.
+type relaxation struct {
+	omega   float64
+	auto    bool
+	since   int // iteration at which omega was set
+	stopped bool
+	best    float64
+}
+
+func newRelaxation(fixed float64) *relaxation {
+	if fixed != 0 {
+		return &relaxation{omega: fixed}
+	}
+	return &relaxation{omega: 1, auto: true, best: math.Inf(1)}
+}
+
+func (r *relaxation) update(hist []float64) {
+	n := len(hist)
+	if !r.auto || r.stopped || n == 0 {
+		return
+	}
+	cur := hist[n-1]
+	if r.omega != 1 {
+		// Allow transient growth, but not a sustained one.
+		if cur > 10*r.best || (n-r.since > 50 && cur > r.best) {
+			r.omega, r.stopped = 1, true
+			return
+		}
+		r.best = math.Min(r.best, cur)
+		// Below the optimum the relaxed rate lambda exceeds omega - 1, and
+		// Young's relation (lambda + omega - 1)^2 = lambda omega^2 mu^2 gives
+		// the plain iteration's mu^2 back: refine omega from it.
+		const span = 10
+		if n-r.since >= 2*span && (n-r.since)%span == 0 {
+			lam := math.Pow(hist[n-1]/hist[n-1-span], 1.0/span)
+			if lam < 1 && lam > r.omega-1+0.02 {
+				mu2 := (lam + r.omega - 1) * (lam + r.omega - 1) / (lam * r.omega * r.omega)
+				if mu2 < 1 {
+					r.omega = math.Min(1.95, 2/(1+math.Sqrt(1-mu2)))
+					r.since = n
+				}
+			}
+		}
+		return
+	}
+	r.best = math.Min(r.best, cur)
+	const warm, span = 30, 10
+	if n < warm {
+		return
+	}
+	a, b := hist[n-1-span], hist[n-1]
+	if !(a > 0 && b > 0 && b < a) {
+		return
+	}
+	rho := math.Pow(b/a, 1.0/span)
+	if rho < 0.5 { // converging fast already
+		return
+	}
+	r.omega = math.Min(1.9, 2/(1+math.Sqrt(1-rho)))
+	r.since = n
+	r.best = cur
+}
+
+// logMarginal returns log b at pixel i of the level, given l[k] = log K u_k
+// there and ld = log d (0 when plain): the fixed target of a transport, -Inf
+// outside a mask, the weighted geometric mean (balanced) or the power mean of
+// order 1 - lambda (unbalanced; Chizat et al. 2018), times d.
+func (p *problem) logMarginal(lv *level, i int, l []float64, ld float64) float64 {
+	if lv.lt != nil {
+		return lv.lt[i]
+	}
+	if lv.mask != nil && !lv.mask[i] {
+		return math.Inf(-1)
+	}
+	var s float64
+	if p.lambda == 1 {
+		for k, x := range l {
+			if p.w[k] != 0 {
+				s += p.w[k] * x
+			}
+		}
+	} else {
+		s = powerMeanLog(l, p.w, 1-p.lambda)
+	}
+	s += ld
+	if math.IsNaN(s) {
+		return math.Inf(-1)
+	}
+	return s
+}
+
+// powerMeanLog returns log((sum_k w_k exp(q l_k))^(1/q)), the log of the
+// weighted power mean of order q of exp(l_k) (weights sum to one), written
+// with log1p and expm1 around the largest term so that it stays accurate as
+// q -> 0, where it tends to the geometric mean sum_k w_k l_k.
+func powerMeanLog(l, w []float64, q float64) float64 {
+	m := math.Inf(-1)
+	for k, x := range l {
+		if w[k] != 0 {
+			m = math.Max(m, x)
+		}
+	}
+	if math.IsInf(m, -1) {
+		return m
+	}
+	var s float64
+	for k, x := range l {
+		if w[k] != 0 {
+			s += w[k] * math.Expm1(q*(x-m))
+		}
+	}
+	return m + math.Log1p(s)/q
+}
+
+// violation accumulates the first-marginal violation sum_i |m_i - t_i| with
+// Kahan summation: it is a small difference of unit masses.
+type violation struct{ s, c float64 }
+
+func (v *violation) add(m, t float64) {
+	y := math.Abs(m-t) - v.c
+	s := v.s + y
+	v.c = (s - v.s) - y
+	v.s = s
+}
+
+// value returns the violation; unbalanced, the mass mode contracts by about
+// lambda per iteration, so the violation understates the distance to the
+// fixed point by 1/(1 - lambda).
+func (v *violation) value(lambda float64) float64 {
+	if lambda != 1 {
+		return v.s / (1 - lambda)
+	}
+	return v.s
+}
+
+// output returns b (given as log b) normalised to unit mass as a field on the
+// full grid, and records b's own mass (the unbalanced barycenter's mass) in
+// p.rawMass.
+func (p *problem) output(lb []float64) *grid.Field {
+	f := &grid.Field{Rows: p.rows, Cols: p.cols, Data: make([]float64, p.n)}
+	m := math.Inf(-1)
+	for _, x := range lb {
+		m = math.Max(m, x)
+	}
+	for i, x := range lb {
+		f.Data[i] = math.Exp(x - m)
+	}
+	p.rawMass = math.Exp(m) * grid.Sum(f.Data)
+	if g, err := grid.Normalize(f); err == nil {
+		return g
+	}
+	return f
+}
+
+func logOf(a []float64) []float64 {
+	out := make([]float64, len(a))
+	for i, x := range a {
+		out[i] = math.Log(x)
+	}
+	return out
+}

@@ -1,0 +1,195 @@
+package sinkhorn
+
+import (
+	"math"
+
+	"barygrid/grid"
+)
+
+// logIter is the log-domain representation: F_k = log u_k, G_k = log v_k,
+// log b and log d, with the kernel applied as a log-sum-exp. It is exact
+// whatever the range of the potentials.
+type logIter struct {
+	p              *problem
+	lv             *level
+	eps            float64
+	k              *logKernel
+	F, G, LKv, LKu [][]float64
+	lb, ld, lkd    []float64
+	tmp            [][]float64
+	scr            []*lseScratch
+	l              [][]float64 // per chunk: log K u_k at one pixel
+	resid          []float64
+	dres           float64
+}
+
+// chunk is the pixel range of one task in the pixel-wise updates.
+const chunk = 4096
+
+func newLogIter(p *problem, lv *level, eps float64, pot *potentials) *logIter {
+	K := len(lv.a)
+	st := &logIter{p: p, lv: lv, eps: eps, k: newLogKernel(lv.rows, lv.cols, lv.dx, lv.dy, eps)}
+	alloc := func() []float64 { return make([]float64, lv.n) }
+	for k := range K {
+		st.F = append(st.F, alloc())
+		g := alloc()
+		if pot != nil {
+			for i, x := range pot.g[k] {
+				g[i] = x / eps
+			}
+		} else if p.product {
+			copy(g, lv.lt)
+		}
+		st.G = append(st.G, g)
+		st.LKv = append(st.LKv, alloc())
+		st.LKu = append(st.LKu, alloc())
+	}
+	for range K + 1 {
+		st.tmp = append(st.tmp, alloc())
+		st.scr = append(st.scr, newLSEScratch(lv.rows, lv.cols))
+	}
+	for range (lv.n + chunk - 1) / chunk {
+		st.l = append(st.l, make([]float64, K))
+	}
+	st.lb = alloc()
+	if p.debias {
+		st.ld, st.lkd = alloc(), alloc()
+		if pot != nil && pot.d != nil {
+			for i, x := range pot.d {
+				st.ld[i] = x / eps
+			}
+		}
+	}
+	st.resid = make([]float64, K)
+	grid.Parallel(K, p.workers, func(k int) { st.k.apply(st.LKv[k], st.G[k], st.tmp[k], st.scr[k]) })
+	return st
+}
+
+func (st *logIter) method() Method          { return MethodLog }
+func (st *logIter) band() int               { return 0 }
+func (st *logIter) debiasResidual() float64 { return st.dres }
+func (st *logIter) health(bool) string      { return "" }
+func (st *logIter) logB() []float64         { return st.lb }
+
+func (st *logIter) verify(r, _ float64) (float64, bool) { return r, false }
+
+func (st *logIter) duals() (F, G, LKv, LKu []float64) {
+	return st.F[0], st.G[0], st.LKv[0], st.LKu[0]
+}
+
+func (st *logIter) state() *potentials {
+	pot := &potentials{}
+	for _, g := range st.G {
+		x := make([]float64, len(g))
+		for i, v := range g {
+			x[i] = st.eps * v
+		}
+		pot.g = append(pot.g, x)
+	}
+	if st.ld != nil {
+		pot.d = make([]float64, len(st.ld))
+		for i, v := range st.ld {
+			pot.d[i] = st.eps * v
+		}
+	}
+	return pot
+}
+
+// step: F_k = lambda (log a_k - LKv_k), log b from the LKu_k, G_k =
+// lambda (log b - LKu_k), log d = (log d + log b - LK d) / 2, each
+// over-relaxed by omega (a linear blend in the log domain).
+func (st *logIter) step(omega float64) float64 {
+	p, lv := st.p, st.lv
+	K := len(lv.a)
+	lam, e := p.lambda, p.lambda
+	if p.product {
+		// Reference a (x) b: the marginals enter unrelaxed.
+		e = 1
+	}
+	ninf := math.Inf(-1)
+	grid.Parallel(K, p.workers, func(k int) {
+		F, la, lkv := st.F[k], lv.la[k], st.LKv[k]
+		for i := range F {
+			t := e*la[i] - lam*lkv[i]
+			if la[i] == ninf {
+				t = ninf
+			} else if omega != 1 && F[i] != ninf {
+				t = (1-omega)*F[i] + omega*t
+			}
+			F[i] = t
+		}
+		st.k.apply(st.LKu[k], F, st.tmp[k], st.scr[k])
+	})
+	nc := (lv.n + chunk - 1) / chunk
+	grid.Parallel(nc, p.workers, func(c int) {
+		l := st.l[c]
+		for i := c * chunk; i < min((c+1)*chunk, lv.n); i++ {
+			for k := range K {
+				l[k] = st.LKu[k][i]
+			}
+			ld := 0.0
+			if st.ld != nil {
+				ld = st.ld[i]
+			}
+			st.lb[i] = p.logMarginal(lv, i, l, ld)
+		}
+	})
+	grid.Parallel(K+1, p.workers, func(k int) {
+		if k == K {
+			if st.ld != nil {
+				st.debias()
+			}
+			return
+		}
+		G, lku := st.G[k], st.LKu[k]
+		for i := range G {
+			t := e*st.lb[i] - lam*lku[i]
+			if st.lb[i] == ninf || lku[i] == ninf {
+				t = ninf
+			} else if omega != 1 && G[i] != ninf {
+				t = (1-omega)*G[i] + omega*t
+			}
+			G[i] = t
+		}
+		lkv := st.LKv[k]
+		st.k.apply(lkv, G, st.tmp[k], st.scr[k])
+		var v violation
+		for i, a := range lv.a[k] {
+			m := 0.0
+			if st.F[k][i] != ninf {
+				m = math.Exp(st.F[k][i] + lkv[i])
+			}
+			if lam != 1 && a > 0 {
+				// u = a^e / (K v)^lambda: u K v = a^e (K v)^(1 - lambda).
+				a = math.Exp(e*lv.la[k][i] + (1-lam)*lkv[i])
+			}
+			v.add(m, a)
+		}
+		st.resid[k] = v.value(lam)
+	})
+	r := 0.0
+	for _, x := range st.resid {
+		r = math.Max(r, x)
+	}
+	return r
+}
+
+// debias updates log d and records |d K d - b|_1 before the update.
+func (st *logIter) debias() {
+	ninf := math.Inf(-1)
+	st.k.apply(st.lkd, st.ld, st.tmp[len(st.lv.a)], st.scr[len(st.lv.a)])
+	var v violation
+	for i := range st.ld {
+		if st.lb[i] != ninf {
+			v.add(math.Exp(st.ld[i]+st.lkd[i]), math.Exp(st.lb[i]))
+		}
+	}
+	st.dres = v.s
+	for i := range st.ld {
+		if st.lb[i] == ninf || math.IsInf(st.lkd[i], 0) || math.IsNaN(st.lkd[i]) {
+			st.ld[i] = ninf
+			continue
+		}
+		st.ld[i] = 0.5 * (st.ld[i] + st.lb[i] - st.lkd[i])
+	}
+}

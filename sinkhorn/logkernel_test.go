@@ -1,0 +1,128 @@
+package sinkhorn
+
+import (
+	"math"
+	"math/rand/v2"
+	"testing"
+)
+
+// fullLSE is the definition, summed over every term with one max shift per
+// output.
+func fullLSE(h []float64, c float64) []float64 {
+	out := make([]float64, len(h))
+	for i := range out {
+		m := math.Inf(-1)
+		for j, x := range h {
+			d := float64(i - j)
+			m = math.Max(m, x-c*d*d)
+		}
+		if math.IsInf(m, -1) {
+			out[i] = m
+			continue
+		}
+		var s float64
+		for j, x := range h {
+			d := float64(i - j)
+			s += math.Exp(x - c*d*d - m)
+		}
+		out[i] = m + math.Log(s)
+	}
+	return out
+}
+
+// The windowed log-sum-exp equals the full sum on random potentials with
+// ranges far beyond exp's (the scaling domain could not represent them),
+// holes of zero mass, and smooth potentials as the iteration meets them.
+// The truncation error is stated: each dropped term is below exp(-36)
+// relative to the largest, so the relative error stays below n * 2.3e-16.
+func TestLogKernelTruncation(t *testing.T) {
+	rng := rand.New(rand.NewPCG(3, 4))
+	s := newLSEScratch(300, 300)
+	worst := 0.0
+	for trial := 0; trial < 200; trial++ {
+		n := 1 + rng.IntN(300)
+		c := math.Pow(10, -3+4*rng.Float64()) // eps from 0.1 to 1000 px^2
+		h := make([]float64, n)
+		kind := trial % 4
+		for j := range h {
+			x := float64(j)
+			switch kind {
+			case 0: // rough, range about 2000
+				h[j] = 1000 * (2*rng.Float64() - 1)
+			case 1: // smooth, tilted parabola, as converged potentials look
+				h[j] = (-0.3*(x-0.4*float64(n))*(x-0.4*float64(n)) + 7*x) * c
+			case 2: // zero-mass holes
+				h[j] = 50 * rng.Float64()
+				if rng.Float64() < 0.4 {
+					h[j] = math.Inf(-1)
+				}
+			case 3: // two separated bumps, both within the window of some outputs
+				h[j] = -c * math.Min((x-10)*(x-10), (x-float64(n)+10)*(x-float64(n)+10))
+			}
+		}
+		want := fullLSE(h, c)
+		got := make([]float64, n)
+		lseLine(got, h, c, s)
+		for i := range got {
+			if math.IsInf(want[i], -1) {
+				if !math.IsInf(got[i], -1) {
+					t.Fatalf("trial %d: out[%d] = %g, want -Inf", trial, i, got[i])
+				}
+				continue
+			}
+			// log-domain values: the absolute error is the relative error of
+			// the sum.
+			e := math.Abs(got[i] - want[i])
+			worst = math.Max(worst, e)
+			if e > float64(n)*3e-16+1e-13 {
+				t.Fatalf("trial %d (kind %d, n %d, c %g): out[%d] = %.17g, full sum %.17g", trial, kind, n, c, i, got[i], want[i])
+			}
+		}
+	}
+	t.Logf("largest error in the log of an output: %.3g", worst)
+}
+
+// The 2-D kernel is the dense Gibbs kernel (definition), anisotropic pixels
+// included.
+func TestLogKernelDense(t *testing.T) {
+	const rows, cols = 6, 9
+	dx, dy, eps := 0.7, 1.3, 0.9
+	rng := rand.New(rand.NewPCG(5, 6))
+	src := make([]float64, rows*cols)
+	for i := range src {
+		src[i] = 30 * rng.Float64()
+	}
+	k := newLogKernel(rows, cols, dx, dy, eps)
+	got, tmp := make([]float64, rows*cols), make([]float64, rows*cols)
+	k.apply(got, src, tmp, newLSEScratch(rows, cols))
+	for p := range got {
+		m := math.Inf(-1)
+		terms := make([]float64, len(src))
+		for q := range src {
+			ddx, ddy := dx*float64(p%cols-q%cols), dy*float64(p/cols-q/cols)
+			terms[q] = src[q] - (ddx*ddx+ddy*ddy)/eps
+			m = math.Max(m, terms[q])
+		}
+		var s float64
+		for _, x := range terms {
+			s += math.Exp(x - m)
+		}
+		if want := m + math.Log(s); math.Abs(got[p]-want) > 1e-12 {
+			t.Errorf("pixel %d: %.15g, dense %.15g", p, got[p], want)
+		}
+	}
+}
+
+// expNeg against math.Exp over its range.
+func TestExpNeg(t *testing.T) {
+	worst := 0.0
+	for i := 0; i <= 1000000; i++ {
+		x := -logDrop * float64(i) / 1000000
+		e := math.Abs(expNeg(x)/math.Exp(x) - 1)
+		worst = math.Max(worst, e)
+	}
+	if worst > 1e-15 {
+		t.Errorf("largest relative error %g", worst)
+	}
+	t.Logf("largest relative error %.3g", worst)
+}
