@@ -34,9 +34,9 @@ func newLogKernel(rows, cols int, dx, dy, eps float64) *logKernel {
 
 // lseScratch is one worker's scratch for the 1-D passes.
 type lseScratch struct {
-	v            []int
-	z, pre, suf  []float64
-	jstar        []int
+	v           []int
+	z, pre, suf []float64
+	jstar       []int
 }
 
 func newLSEScratch(rows, cols int) *lseScratch {
