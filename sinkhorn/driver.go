@@ -3,6 +3,7 @@ package sinkhorn
 import (
 	"fmt"
 	"math"
+	"slices"
 	"time"
 
 	"barygrid/grid"
@@ -132,32 +133,34 @@ func (p *problem) pyramid(maxLevels int) []*level {
 	return lvs
 }
 
-// schedule returns the epsilon stages: epsilon halves from a tenth of the
-// squared extent of the grid (where transport is easy) to the target
-// (Kosowsky & Yuille 1994; Schmitzer 2019), and each stage runs on the
-// coarsest level whose pixel is no larger than sqrt(epsilon), so that the
-// level resolves the blur of its epsilon; the last stage runs on level 0.
+// schedule returns the epsilon stages: epsilon doubles from the target up
+// to about a tenth of the squared extent of the grid (where transport is
+// easy), and the stages run from there down (Kosowsky & Yuille 1994;
+// Schmitzer 2019). Each stage runs on the coarsest level whose squared pixel
+// is at most levelRatio * epsilon, a level that still resolves the blur of
+// its epsilon; the last stage runs on level 0 at the target.
 func (p *problem) schedule(levels []*level) []stagePlan {
 	ext := math.Max(float64(p.cols)*p.dx, float64(p.rows)*p.dy)
-	eps := math.Max(p.eps, ext*ext/10)
-	var plan []stagePlan
-	for {
-		if eps <= p.eps*(1+1e-12) {
-			plan = append(plan, stagePlan{0, p.eps})
-			return plan
-		}
+	plan := []stagePlan{{0, p.eps}}
+	for eps := 2 * p.eps; eps/2 < ext*ext/10; eps *= 2 {
 		l := 0
 		for l+1 < len(levels) {
 			h := math.Max(levels[l+1].dx, levels[l+1].dy)
-			if h*h > eps {
+			if h*h > levelRatio*eps {
 				break
 			}
 			l++
 		}
 		plan = append(plan, stagePlan{l, eps})
-		eps /= 2
 	}
+	slices.Reverse(plan)
+	return plan
 }
+
+// levelRatio: a level of pixel h runs the stages with epsilon >= h^2 /
+// levelRatio. With 2, the full grid runs only the target stage when the
+// target is at least half a squared pixel of the next level.
+const levelRatio = 2
 
 // solve runs the stages and returns the result on the full grid.
 func (p *problem) solve() *Result {
@@ -186,15 +189,15 @@ func (p *problem) solve() *Result {
 			pot = upsample(pot, levels, sp.level)
 		}
 		final := si == len(plan)-1
-		tol, budget := p.tol, p.maxIter-res.Iterations
+		// The last stage always gets an iteration, so that a result on the
+		// full grid exists whatever the cap; earlier stages get what is left
+		// beyond that one and are skipped when nothing is.
+		tol, budget := p.tol, max(p.maxIter-res.Iterations, 1)
 		if !final {
-			tol, budget = math.Max(p.tol, stageTol), min(budget, stageCap)
-		}
-		if budget <= 0 {
-			res.Status = IterationLimit
-			res.Message = fmt.Sprintf("iteration cap %d reached at epsilon %g on level %d, before the target epsilon %g on the full grid",
-				p.maxIter, sp.eps, sp.level, p.eps)
-			break
+			tol, budget = math.Max(p.tol, stageTol), min(p.maxIter-res.Iterations-1, stageCap)
+			if budget <= 0 {
+				continue
+			}
 		}
 		var status Status
 		it, status = p.runStage(lv, sp, pot, tol, budget, final, res)
@@ -207,6 +210,9 @@ func (p *problem) solve() *Result {
 			res.Status = status
 			if status == IterationLimit {
 				res.Message = fmt.Sprintf("stopped after %d iterations at residual %.3g (tolerance %.3g)", res.Iterations, res.Residual, p.tol)
+				if n := len(res.Stages); n > 0 && res.Stages[n-1].Iterations < res.Iterations/len(plan) {
+					res.Message += fmt.Sprintf("; the cap left %d iterations for the full grid at the target epsilon", res.Stages[n-1].Iterations)
+				}
 				if p.debias {
 					res.Message += fmt.Sprintf(", debiasing residual %.3g", res.DebiasResidual)
 				}
@@ -255,8 +261,10 @@ func (p *problem) runStage(lv *level, sp stagePlan, pot *potentials, tol float64
 			return it, st
 		}
 		switch {
-		case it.method() == MethodScaling && omega != 1 && relax == 0:
-			// Over-relaxation can push scalings out of range on the way.
+		case omega != 1:
+			// Over-relaxation can push the iterates out of range on the
+			// way (scalings over- or underflow, potentials reach Inf - Inf):
+			// run the stage again without it.
 			relax = 1
 		case it.method() == MethodScaling && p.method == MethodAuto:
 			useScaling = false
@@ -338,10 +346,14 @@ func (p *problem) spread() float64 {
 	return p.spreadCache
 }
 
-// upsample carries potentials to a finer level by bilinear interpolation of
-// the potentials (Schmitzer 2019; Feydy 2020): fine pixel r lies at coarse
-// coordinate (r - 0.5) / 2 on each finer level. Where the coarse potential is
-// -Inf (zero mass, outside a mask) only the finite neighbours count.
+// upsample carries potentials to a finer level (Schmitzer 2019; Feydy
+// 2020): fine pixel r lies at coarse coordinate (r - 0.5) / 2. The
+// interpolation is separable cubic (Catmull-Rom), which reproduces
+// quadratics: potentials of the squared cost are nearly quadratic, and
+// bilinear interpolation would leave an error of about (coarse pixel)^2 / 4,
+// as large as epsilon itself at the hand-over. Where a neighbour is -Inf
+// (zero mass, outside a mask) only the finite corners of the bilinear cell
+// count.
 func upsample(pot *potentials, levels []*level, to int) *potentials {
 	for pot.level > to {
 		c, f := levels[pot.level], levels[pot.level-1]
@@ -352,33 +364,9 @@ func upsample(pot *potentials, levels []*level, to int) *potentials {
 			out := make([]float64, f.n)
 			for r := 0; r < f.rows; r++ {
 				y := math.Min(math.Max((float64(r)-0.5)/2, 0), float64(c.rows-1))
-				r0 := min(int(y), c.rows-2)
-				r0 = max(r0, 0)
-				ty := y - float64(r0)
 				for q := 0; q < f.cols; q++ {
 					xx := math.Min(math.Max((float64(q)-0.5)/2, 0), float64(c.cols-1))
-					q0 := max(min(int(xx), c.cols-2), 0)
-					tx := xx - float64(q0)
-					var s, ws float64
-					for _, nb := range [4]struct {
-						r, q int
-						w    float64
-					}{{r0, q0, (1 - ty) * (1 - tx)}, {r0, q0 + 1, (1 - ty) * tx}, {r0 + 1, q0, ty * (1 - tx)}, {r0 + 1, q0 + 1, ty * tx}} {
-						if nb.r >= c.rows || nb.q >= c.cols || nb.w == 0 {
-							continue
-						}
-						v := x[nb.r*c.cols+nb.q]
-						if math.IsInf(v, 0) || math.IsNaN(v) {
-							continue
-						}
-						s += nb.w * v
-						ws += nb.w
-					}
-					if ws > 0 {
-						out[r*f.cols+q] = s / ws
-					} else {
-						out[r*f.cols+q] = math.Inf(-1)
-					}
+					out[r*f.cols+q] = interp(x, c.rows, c.cols, y, xx)
 				}
 			}
 			return out
@@ -390,6 +378,58 @@ func upsample(pot *potentials, levels []*level, to int) *potentials {
 		pot = next
 	}
 	return pot
+}
+
+// interp evaluates the rows x cols array x at (y, xx), in pixel units.
+func interp(x []float64, rows, cols int, y, xx float64) float64 {
+	r0, q0 := int(y), int(xx)
+	ty, tx := y-float64(r0), xx-float64(q0)
+	at := func(r, q int) float64 {
+		r = min(max(r, 0), rows-1)
+		q = min(max(q, 0), cols-1)
+		return x[r*cols+q]
+	}
+	wy, wx := catmullRom(ty), catmullRom(tx)
+	var s float64
+	ok := true
+	for i := 0; i < 4 && ok; i++ {
+		for j := 0; j < 4; j++ {
+			v := at(r0-1+i, q0-1+j)
+			if math.IsInf(v, 0) || math.IsNaN(v) {
+				ok = false
+				break
+			}
+			s += wy[i] * wx[j] * v
+		}
+	}
+	if ok {
+		return s
+	}
+	var ws float64
+	s = 0
+	for _, nb := range [4][3]float64{{0, 0, (1 - ty) * (1 - tx)}, {0, 1, (1 - ty) * tx}, {1, 0, ty * (1 - tx)}, {1, 1, ty * tx}} {
+		v := at(r0+int(nb[0]), q0+int(nb[1]))
+		if nb[2] == 0 || math.IsInf(v, 0) || math.IsNaN(v) {
+			continue
+		}
+		s += nb[2] * v
+		ws += nb[2]
+	}
+	if ws > 0 {
+		return s / ws
+	}
+	return math.Inf(-1)
+}
+
+// catmullRom returns the weights of the four samples around t in [0, 1).
+func catmullRom(t float64) [4]float64 {
+	t2, t3 := t*t, t*t*t
+	return [4]float64{
+		(-t3 + 2*t2 - t) / 2,
+		(3*t3 - 5*t2 + 2) / 2,
+		(-3*t3 + 4*t2 + t) / 2,
+		(t3 - t2) / 2,
+	}
 }
 
 // relaxation tracks the over-relaxation factor. In auto mode it starts at 1,

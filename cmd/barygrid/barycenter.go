@@ -125,6 +125,30 @@ type baryReport struct {
 	Unbalanced float64       `json:"unbalanced_penalty,omitempty"`
 	Masked     bool          `json:"masked,omitempty"`
 	BaryMass   float64       `json:"barycenter_mass_in_input_units"`
+	Levels     int           `json:"levels"`
+	FinestIter int           `json:"finest_level_iterations"`
+	Stages     []stageReport `json:"stages"`
+}
+
+// stageReport is one epsilon stage of the solve, for the report.
+type stageReport struct {
+	Level          int     `json:"level"`
+	Shape          [2]int  `json:"shape"`
+	Epsilon        float64 `json:"epsilon"`
+	Method         string  `json:"method"`
+	Iterations     int     `json:"iterations"`
+	Residual       float64 `json:"residual"`
+	DebiasResidual float64 `json:"debias_residual,omitempty"`
+	Seconds        float64 `json:"seconds"`
+}
+
+func stageReports(st []sinkhorn.Stage) []stageReport {
+	out := make([]stageReport, len(st))
+	for i, s := range st {
+		out[i] = stageReport{Level: s.Level, Shape: [2]int{s.Rows, s.Cols}, Epsilon: s.Epsilon, Method: s.Method.String(),
+			Iterations: s.Iterations, Residual: s.Residual, DebiasResidual: s.DebiasResidual, Seconds: s.Elapsed.Seconds()}
+	}
+	return out
 }
 
 func printRanking(ranks []rankEntry) {
@@ -144,7 +168,7 @@ func newBaryReport(files []string, fs []*grid.Field, weights []float64, s sinkho
 		Epsilon: r.Epsilon, EpsilonSet: s.Epsilon != 0, Converged: r.Status == sinkhorn.Converged, Status: r.Status.String(),
 		Message: r.Message, Debiased: r.Debiased, Method: r.Method.String(), Relax: r.Relax, Band: r.Band, Tol: s.Tol,
 		PixelSize: [2]float64{dx, dy}, Unit: fs[0].Unit, Shape: [2]int{fs[0].Rows, fs[0].Cols}, Residuals: r.Residuals,
-		DebiasViol: r.DebiasResidual}
+		DebiasViol: r.DebiasResidual, Levels: r.Levels, FinestIter: r.FinestIterations, Stages: stageReports(r.Stages)}
 	if rep.Tol == 0 {
 		rep.Tol = 1e-6
 	}
@@ -223,6 +247,9 @@ func barycenterCommand() *cli.Command {
 				}
 				rep.Ranking = ranks
 				defer printRanking(ranks)
+			}
+			if r.Barycenter == nil {
+				return fmt.Errorf("barycenter failed: %s", r.Message)
 			}
 			if out != "" {
 				sc, err := fieldfile.Save(out, r.Barycenter, saveSettings(c))
