@@ -290,6 +290,7 @@ func (p *problem) iterate(it iteration, lv *level, sp stagePlan, tol float64, bu
 	var hist []float64
 	status := NotTerminated
 	msg := ""
+	mark := len(res.Residuals)
 	for n := 0; ; n++ {
 		if n >= budget {
 			status = IterationLimit
@@ -328,6 +329,15 @@ func (p *problem) iterate(it iteration, lv *level, sp stagePlan, tol float64, bu
 			break
 		}
 		rl.update(hist)
+	}
+	if status == NumericalFailure {
+		// The history keeps finite values only (reports are JSON); the failed
+		// attempt's iterations still count.
+		res.Residuals = res.Residuals[:mark]
+		stage.Residual, res.Residual = math.MaxFloat64, math.MaxFloat64
+		if len(hist) > 1 && !math.IsNaN(hist[len(hist)-2]) {
+			stage.Residual, res.Residual = hist[len(hist)-2], hist[len(hist)-2]
+		}
 	}
 	stage.Elapsed = time.Since(start)
 	res.Stages = append(res.Stages, stage)
