@@ -81,8 +81,14 @@ type Settings struct {
 	// MaxIter caps iterations, all levels and epsilon stages together;
 	// zero means 10000.
 	MaxIter int
-	// Plain computes the plain entropic barycenter instead of the debiased one.
-	Plain bool
+	// Debias computes the debiased barycenter (Janati, Cuturi, Gramfort,
+	// ICML 2020) instead of the plain entropic one (the default). It removes
+	// the blur of a large epsilon, but it solves d * K d = b, a
+	// deconvolution whose fixed point is not smooth on thin structures (a
+	// rain band one or two pixels wide): there it grows streaks as the
+	// iteration goes on, and it converges sublinearly. The result counts as
+	// converged only when d has reached its fixed point too (see Tol).
+	Debias bool
 	// Method chooses the representation; the zero value is MethodAuto.
 	Method Method
 	// Relax is the over-relaxation factor omega in (0, 2) for the scaling
@@ -144,7 +150,7 @@ type Result struct {
 	Residual  float64
 	Residuals []float64
 	// DebiasResidual is |d K d - b|_1 for the debiased barycenter, the
-	// distance of the debiasing field from its fixed point (0 when Plain).
+	// distance of the debiasing field from its fixed point (0 when plain).
 	DebiasResidual float64
 	Elapsed        time.Duration
 	Epsilon        float64
@@ -190,13 +196,15 @@ func (w *WarmStart) fits(p *problem) bool {
 		(p.debias == (w.d != nil))
 }
 
-// DefaultEpsilon is the epsilon used when Settings leaves it zero: the square
-// of 1/25 of the grid's longer physical side, and at least one squared
-// pixel. It blurs by a few percent of the field, which debiasing removes.
+// DefaultEpsilon is the epsilon used when Settings leaves it zero: one
+// squared pixel (the larger side of the pixel). The plain barycenter's blur
+// is then about epsilon/2 in variance per axis, a standard deviation of 0.7
+// pixel, and its answer does not depend on when the loop stops (measured on
+// the demo's storm members and nuclei: tol 1e-6 against 1e-9, see the
+// tests). A larger epsilon gives a smoother, faster result.
 func DefaultEpsilon(rows, cols int, dx, dy float64) float64 {
-	side := math.Max(float64(cols)*dx, float64(rows)*dy) / 25
 	h := math.Max(dx, dy)
-	return math.Max(side*side, h*h)
+	return h * h
 }
 
 // ErrInput reports an unusable set of inputs; ErrMask, a mask that does not
@@ -240,7 +248,7 @@ func setup(fields []*grid.Field, s Settings) (*problem, error) {
 	f0 := fields[0]
 	dx, dy := f0.PixelSize()
 	p := &problem{rows: f0.Rows, cols: f0.Cols, n: f0.Rows * f0.Cols, dx: dx, dy: dy,
-		eps: s.Epsilon, tol: s.Tol, maxIter: s.MaxIter, debias: !s.Plain, method: s.Method, singleScale: s.SingleScale,
+		eps: s.Epsilon, tol: s.Tol, maxIter: s.MaxIter, debias: s.Debias, method: s.Method, singleScale: s.SingleScale,
 		workers: s.Workers, progress: s.Progress, relax: s.Relax, warm: s.Warm}
 	if err := grid.SameShape(fields, nil); err != nil {
 		return nil, err
@@ -428,7 +436,7 @@ func normWeights(w []float64, k int) ([]float64, error) {
 // Barycenter returns the entropic Wasserstein barycenter of the fields, which
 // must share shape and pixel size. With u_k, v_k the scalings of the plan
 // between input a_k and the barycenter b, and d the debiasing field (d = 1
-// when Plain), each iteration is
+// unless Debias), each iteration is
 //
 //	u_k = a_k / K v_k
 //	b   = d * prod_k (K u_k)^{w_k}

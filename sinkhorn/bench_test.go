@@ -59,6 +59,6 @@ func BenchmarkBarycenter8x128Plain(b *testing.B) {
 		fs = append(fs, gaussField(128, 128, 40+8*float64(k), 50+5*float64(k%3), 60+20*float64(k%4)))
 	}
 	for b.Loop() {
-		Barycenter(fs, Settings{Epsilon: 16, Plain: true, Relax: 1, Tol: 1e-300, MaxIter: 100, SingleScale: true, Method: MethodScaling})
+		Barycenter(fs, Settings{Epsilon: 16, Relax: 1, Tol: 1e-300, MaxIter: 100, SingleScale: true, Method: MethodScaling})
 	}
 }

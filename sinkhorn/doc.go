@@ -2,17 +2,25 @@
 // on a regular grid by iterative Bregman projections (Benamou, Carlier,
 // Cuturi, Nenna, Peyre, SIAM J. Sci. Comput. 37(2), 2015), with the Gibbs
 // kernel of the squared Euclidean cost applied separably along rows and
-// columns (Solomon et al., ACM TOG 34(4), 2015), in physical units.
+// columns (Solomon et al., ACM TOG 34(4), 2015), in physical units, and the
+// entropic transport and Sinkhorn divergence between two fields.
 //
-// By default the barycenter is debiased (Janati, Cuturi, Gramfort, ICML
-// 2020): the plain entropic barycenter is blurred, its covariance inflated by
-// about epsilon/2 per axis, and debiasing removes that blur.
+// By default the barycenter is the plain entropic one at a small epsilon
+// (one squared pixel): strictly convex, so it has one answer that the
+// iteration reaches linearly, and blurred by less than a pixel. The
+// debiased barycenter (Janati, Cuturi, Gramfort, ICML 2020) is an option;
+// see Settings.Debias for where its fixed point is not smooth.
 //
-// Two iterations share one set of equations (see Barycenter): the scaling
-// iteration, fast, banded and multiply-add only, and a log-domain
-// iteration with epsilon-scaling for small epsilon, where the scalings would
-// under- or overflow. MethodAuto starts with the first and moves to the
-// second when it sees the scalings leave the safe range.
+// One driver runs every problem: a pyramid of 2 x 2 block sums, epsilon
+// halved stage by stage from a large value to the target, each stage on the
+// coarsest level that resolves it, the potentials carried up by cubic
+// interpolation (Schmitzer, SIAM J. Sci. Comput. 41(3), 2019; Feydy 2020).
+// Each stage runs in one of two representations: scalings with a banded
+// kernel (multiply-add only, the cheapest, exact while the scalings fit in
+// float64), or potentials with a log-sum-exp kernel whose terms are found
+// from a lower envelope and truncated where they cannot matter (exact
+// whatever the range). MethodAuto picks the first where it is predicted
+// exact and falls back to the second when it sees it fail.
 //
 // Conventions: pixel (r, c) sits at x = c*dx, y = r*dy; epsilon is in the
 // cost's squared units; inputs are normalised to unit mass; the stopping

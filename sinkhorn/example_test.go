@@ -19,8 +19,9 @@ func blob(mx, my float64) *grid.Field {
 	return f
 }
 
-// The debiased barycenter of two translates of a blob is the blob halfway
-// between them, not two half-height ghosts.
+// The barycenter of two translates of a blob is the blob halfway between
+// them, not two half-height ghosts; the plain entropic barycenter (the
+// default) blurs it by epsilon/2 in variance (4 + 2/2).
 func ExampleBarycenter() {
 	res, err := sinkhorn.Barycenter([]*grid.Field{blob(10, 12), blob(20, 16)}, sinkhorn.Settings{Epsilon: 2})
 	if err != nil {
@@ -31,7 +32,7 @@ func ExampleBarycenter() {
 	fmt.Printf("centroid (%.2f, %.2f), variance %.2f\n", m.Mean[0], m.Mean[1], m.Cov[0][0])
 	// Output:
 	// converged
-	// centroid (15.00, 14.00), variance 4.00
+	// centroid (15.00, 14.00), variance 5.00
 }
 
 // The Sinkhorn divergence between a field and its translate is the squared

@@ -165,7 +165,7 @@ func TestAgainstExactLPBarycenter(t *testing.T) {
 		return s
 	}
 	gap := func(eps float64, plain bool) float64 {
-		r, err := Barycenter(fields, Settings{Epsilon: eps, Weights: w, Plain: plain, Tol: 1e-9, MaxIter: 100000})
+		r, err := Barycenter(fields, Settings{Epsilon: eps, Weights: w, Debias: !plain, Tol: 1e-9, MaxIter: 100000})
 		if err != nil || r.Status != Converged {
 			t.Fatalf("eps %g plain %v: %v %v", eps, plain, err, r.Message)
 		}
@@ -271,7 +271,7 @@ func TestTranslationAndDebiasing(t *testing.T) {
 		// The debiasing field converges sublinearly and must reach the
 		// tolerance too: ask it for 1e-7.
 		tol := map[bool]float64{true: 1e-8, false: 1e-7}[plain]
-		r, err := Barycenter(fs, Settings{Epsilon: eps, Weights: w, Plain: plain, Tol: tol})
+		r, err := Barycenter(fs, Settings{Epsilon: eps, Weights: w, Debias: !plain, Tol: tol})
 		if err != nil || r.Status != Converged {
 			t.Fatal(err, r.Message)
 		}
@@ -312,11 +312,11 @@ func TestLogAgreesWithScaling(t *testing.T) {
 		if !plain {
 			tol = 1e-8
 		}
-		a, err := Barycenter(fs, Settings{Epsilon: 3, Method: MethodScaling, Plain: plain, Tol: tol})
+		a, err := Barycenter(fs, Settings{Epsilon: 3, Method: MethodScaling, Debias: !plain, Tol: tol})
 		if err != nil || a.Status != Converged {
 			t.Fatal(err, a.Message)
 		}
-		b, err := Barycenter(fs, Settings{Epsilon: 3, Method: MethodLog, Plain: plain, Tol: tol})
+		b, err := Barycenter(fs, Settings{Epsilon: 3, Method: MethodLog, Debias: !plain, Tol: tol})
 		if err != nil || b.Status != Converged {
 			t.Fatal(err, b.Message)
 		}
@@ -336,7 +336,7 @@ func TestLogAgreesWithScaling(t *testing.T) {
 // debiased barycenter of two translates must still be the midpoint blob.
 func TestSmallEpsilonAuto(t *testing.T) {
 	fs := []*grid.Field{gaussField(56, 56, 10, 10, 5), gaussField(56, 56, 46, 46, 5)}
-	r, err := Barycenter(fs, Settings{Epsilon: 1})
+	r, err := Barycenter(fs, Settings{Epsilon: 1, Debias: true})
 	if err != nil || r.Status != Converged {
 		t.Fatal(err, r.Message)
 	}
@@ -407,12 +407,12 @@ func TestBadSettings(t *testing.T) {
 func TestWarmStart(t *testing.T) {
 	fs := []*grid.Field{gaussField(24, 30, 8, 9, 5), gaussField(24, 30, 20, 14, 7)}
 	for _, m := range []Method{MethodScaling, MethodLog} {
-		first, err := Barycenter(fs, Settings{Epsilon: 2, Weights: []float64{0.5, 0.5}, Method: m, Tol: 1e-8, Plain: true})
+		first, err := Barycenter(fs, Settings{Epsilon: 2, Weights: []float64{0.5, 0.5}, Method: m, Tol: 1e-8})
 		if err != nil {
 			t.Fatal(err)
 		}
-		cold, _ := Barycenter(fs, Settings{Epsilon: 2, Weights: []float64{0.6, 0.4}, Method: m, Tol: 1e-8, Plain: true})
-		warm, _ := Barycenter(fs, Settings{Epsilon: 2, Weights: []float64{0.6, 0.4}, Method: m, Tol: 1e-8, Plain: true, Warm: first.Warm})
+		cold, _ := Barycenter(fs, Settings{Epsilon: 2, Weights: []float64{0.6, 0.4}, Method: m, Tol: 1e-8})
+		warm, _ := Barycenter(fs, Settings{Epsilon: 2, Weights: []float64{0.6, 0.4}, Method: m, Tol: 1e-8, Warm: first.Warm})
 		if cold.Status != Converged || warm.Status != Converged {
 			t.Fatalf("%v: %v %v", m, cold.Message, warm.Message)
 		}

@@ -19,7 +19,7 @@ func TestStatusNeverOverclaims(t *testing.T) {
 	for _, sep := range []float64{20, 30, 40} {
 		fs := []*grid.Field{gaussField(64, 64, 10, 10, 4), gaussField(64, 64, 10+sep, 10+sep, 30), gaussField(64, 64, 10+sep, 10, 2)}
 		for _, m := range []Method{MethodScaling, MethodAuto} {
-			r, err := Barycenter(fs, Settings{Epsilon: 4, Method: m, MaxIter: 100, Tol: 1e-12, Plain: true, Relax: 1})
+			r, err := Barycenter(fs, Settings{Epsilon: 4, Method: m, MaxIter: 100, Tol: 1e-12, Relax: 1})
 			if err != nil {
 				t.Fatal(err)
 			}

@@ -32,7 +32,7 @@ type TransportResult struct {
 // MaxIter, Relax, Method, SingleScale and Workers of s are used.
 func Transport(a, b *grid.Field, s Settings) (*TransportResult, error) {
 	p, err := setup([]*grid.Field{a, b}, Settings{Epsilon: s.Epsilon, Tol: s.Tol, MaxIter: s.MaxIter, Relax: s.Relax,
-		Workers: s.Workers, Method: s.Method, SingleScale: s.SingleScale, Plain: true})
+		Workers: s.Workers, Method: s.Method, SingleScale: s.SingleScale})
 	if err != nil {
 		return nil, err
 	}
@@ -135,7 +135,7 @@ func UnbalancedDivergence(a, b *grid.Field, rho float64, s Settings) (float64, [
 	if !(rho > 0) {
 		return 0, nil, fmt.Errorf("%w: unbalanced penalty must be positive, got %g", ErrInput, rho)
 	}
-	p, err := setup([]*grid.Field{a, b}, Settings{Epsilon: s.Epsilon, Tol: s.Tol, MaxIter: s.MaxIter, Workers: s.Workers, Plain: true,
+	p, err := setup([]*grid.Field{a, b}, Settings{Epsilon: s.Epsilon, Tol: s.Tol, MaxIter: s.MaxIter, Workers: s.Workers,
 		Relax: s.Relax, Method: s.Method, SingleScale: s.SingleScale})
 	if err != nil {
 		return 0, nil, err

@@ -18,7 +18,7 @@ func TestUnbalancedTendsToBalanced(t *testing.T) {
 	f1, _ := grid.Normalize(gaussField(20, 24, 7, 8, 4))
 	f2, _ := grid.Normalize(gaussField(20, 24, 15, 11, 6))
 	fs := []*grid.Field{f1, f2}
-	bal, err := Barycenter(fs, Settings{Epsilon: 2, Plain: true, Tol: 1e-10})
+	bal, err := Barycenter(fs, Settings{Epsilon: 2, Tol: 1e-10})
 	if err != nil {
 		t.Fatal(err)
 	}

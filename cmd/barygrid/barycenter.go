@@ -20,10 +20,10 @@ import (
 // runs Sinkhorn iterations.
 func solverFlags() []cli.Flag {
 	return []cli.Flag{
-		&cli.Float64Flag{Name: "epsilon", Usage: "entropic regularisation in squared physical units (default: (longer side/40)^2)"},
-		&cli.Float64Flag{Name: "tol", Value: 1e-6, Usage: "stop when the largest first-marginal violation (L1) is below this"},
+		&cli.Float64Flag{Name: "epsilon", DefaultText: "one squared pixel", Usage: "smoothing, in squared physical units: the barycenter is blurred by about epsilon/2 in variance per axis; larger is smoother and faster"},
+		&cli.Float64Flag{Name: "tol", Value: 1e-6, Usage: "stop when every input's transport plan matches the input to this fraction of its mass (first-marginal violation, L1)"},
 		&cli.IntFlag{Name: "max-iter", Value: 10000, Usage: "iteration cap"},
-		&cli.BoolFlag{Name: "debias", Value: true, Usage: "debiased barycenter (--debias=false for the plain entropic one)"},
+		&cli.BoolFlag{Name: "debias", Usage: "remove the blur of a large epsilon (debiased barycenter); on thin structures its answer can grow streaks and it converges slowly, so it is off by default"},
 		&cli.StringFlag{Name: "method", Value: "auto", Usage: "iteration: auto, scaling or log"},
 		&cli.IntFlag{Name: "threads", Usage: "worker goroutines (default: all CPUs; results do not depend on it)"},
 		&cli.Float64Flag{Name: "unbalanced", Usage: "KL-relaxed marginals with penalty `RHO` (squared physical units): inputs keep their masses (plain, not debiased)"},
@@ -35,7 +35,7 @@ func solverFlags() []cli.Flag {
 
 func solverSettings(c *cli.Context) (sinkhorn.Settings, error) {
 	s := sinkhorn.Settings{Epsilon: c.Float64("epsilon"), Tol: c.Float64("tol"), MaxIter: c.Int("max-iter"),
-		Plain: !c.Bool("debias"), Workers: c.Int("threads"), Relax: c.Float64("relax")}
+		Debias: c.Bool("debias"), Workers: c.Int("threads"), Relax: c.Float64("relax")}
 	s.Unbalanced = c.Float64("unbalanced")
 	if c.IsSet("unbalanced") && !(s.Unbalanced > 0) {
 		return s, usagef("--unbalanced must be positive, got %g", s.Unbalanced)

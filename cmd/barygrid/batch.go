@@ -286,7 +286,7 @@ func runBatch(c *cli.Context) error {
 	if err := os.MkdirAll(out, 0o755); err != nil {
 		return fmt.Errorf("%s: %v", out, err)
 	}
-	settings := map[string]any{"epsilon": s.Epsilon, "tol": s.Tol, "max_iter": s.MaxIter, "debias": !s.Plain,
+	settings := map[string]any{"epsilon": s.Epsilon, "tol": s.Tol, "max_iter": s.MaxIter, "debias": s.Debias,
 		"method": c.String("method"), "unbalanced": s.Unbalanced, "pixel_size": c.String("pixel-size"),
 		"invert": ls.Invert, "background": c.String("background"), "mask": c.String("mask")}
 

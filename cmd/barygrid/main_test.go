@@ -192,11 +192,14 @@ func TestMorphMidpointMoves(t *testing.T) {
 		t.Fatal(err)
 	}
 	m := grid.ComputeMoments(mid)
-	if math.Abs(m.Mean[0]-19) > 1e-3 || math.Abs(m.Cov[0][0]-4) > 0.1 {
-		t.Errorf("midpoint centroid %v variance %v, want x = 19 and variance 4", m.Mean, m.Cov)
+	// The plain entropic barycenter (the default) blurs by epsilon/2 in
+	// variance per axis (Janati, Cuturi, Gramfort 2020): 4 + 1/2.
+	if math.Abs(m.Mean[0]-19) > 1e-3 || math.Abs(m.Cov[0][0]-4.5) > 0.1 {
+		t.Errorf("midpoint centroid %v variance %v, want x = 19 and variance 4.5", m.Mean, m.Cov)
 	}
 	ref, _ := grid.Normalize(blob(20, 40, 8, 10, 4))
 	_, peak := ref.MinMax()
+	peak *= 4 / 4.5 // a 2-D Gaussian's peak falls as 1/variance
 	if _, hi := mid.MinMax(); math.Abs(hi-peak) > 0.05*peak {
 		t.Errorf("midpoint peak %g, want the blob's %g (a cross-fade would halve it)", hi, peak)
 	}
