@@ -13,6 +13,7 @@ import (
 
 	"barygrid/grid"
 	"barygrid/io/fieldfile"
+	"barygrid/sinkhorn"
 )
 
 // runCLI runs the command line with stdout and stderr captured.
@@ -288,5 +289,32 @@ func TestMaskShapeError(t *testing.T) {
 	code, _, errs := runCLI(t, append([]string{"barycenter", "--epsilon", "2", "--mask", mask}, files...)...)
 	if code != 1 || !strings.Contains(errs, mask+": sinkhorn: bad input: mask is 2x2, the fields are 24x24") {
 		t.Errorf("exit %d, %q", code, errs)
+	}
+}
+
+// The default barycenter does not depend on when the loop stops: on the
+// demo's storm members and nuclei, tolerance 1e-6 and 1e-9 give the same
+// field to L1 1e-3 (the plain entropic barycenter is the unique minimiser of
+// a strictly convex problem, Benamou et al. 2015), and 1e-9 is reached
+// within the iteration cap.
+func TestDefaultToleranceIndependent(t *testing.T) {
+	sets := map[string][]*grid.Field{"storm": storm(8, 80, 2), "nuclei": floorless(nuclei(12, 64, 1), 30)}
+	for name, fs := range sets {
+		var out [2]*sinkhorn.Result
+		for i, tol := range []float64{1e-6, 1e-9} {
+			r, err := sinkhorn.Barycenter(fs, sinkhorn.Settings{Tol: tol})
+			if err != nil || r.Status != sinkhorn.Converged {
+				t.Fatalf("%s tol %g: %v %v", name, tol, err, r.Message)
+			}
+			out[i] = r
+		}
+		var l1 float64
+		for i, x := range out[0].Barycenter.Data {
+			l1 += math.Abs(x - out[1].Barycenter.Data[i])
+		}
+		t.Logf("%s: %d and %d iterations, L1 between tol 1e-6 and 1e-9: %.2g", name, out[0].Iterations, out[1].Iterations, l1)
+		if l1 > 1e-3 {
+			t.Errorf("%s: L1 %g between tolerances 1e-6 and 1e-9", name, l1)
+		}
 	}
 }
