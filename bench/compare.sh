@@ -1,27 +1,30 @@
 #!/usr/bin/env bash
-# Times barygrid against the numpy peer as whole processes, alternating, and
-# prints the ratio and the L1 agreement. Usage: bench/compare.sh [EPS] [ITERS]
+# Times barygrid against the numpy peer as whole processes in the same run,
+# alternating, and prints the ratios and the L1 agreement with the peer.
+# P is the peer's plain barycenter at epsilon 16, tol 1e-6 (the yardstick of
+# the engine issue); barygrid runs plain at epsilon 16 and at its default
+# (epsilon one squared pixel).
+# Usage: bench/compare.sh [SIZE] [ROUNDS]   (needs ../shared and Debian's numpy)
 set -euo pipefail
 cd "$(dirname "$0")/.."
-eps=${1:-16}
-iters=${2:-}
+size=${1:-128}
+rounds=${2:-1}
 tmp=$(mktemp -d)
-/usr/bin/python3 ../shared/bench/make_fields.py --k 8 --size 128 --seed 2 --dir "$tmp/f" >/dev/null
+trap 'rm -rf "$tmp"' EXIT
+/usr/bin/python3 ../shared/bench/make_fields.py --k 8 --size "$size" --seed 2 --dir "$tmp/f" >/dev/null
 go build -o "$tmp/barygrid" ./cmd/barygrid
-peer_args=(--eps "$eps" --tol 1e-6)
-ours_args=(--epsilon "$eps" --tol 1e-6 --debias=false --force)
-if [ -n "$iters" ]; then
-  peer_args=(--eps "$eps" --iters "$iters")
-  # Same plain iteration as the peer, so that the time per iteration compares.
-  ours_args=(--epsilon "$eps" --tol 1e-300 --max-iter "$iters" --relax 1 --debias=false --force)
-fi
-for round in 1 2; do
-  t0=$(date +%s.%N)
-  /usr/bin/python3 ../shared/bench/peer_barycenter.py "${peer_args[@]}" --out "$tmp/peer.npy" "$tmp"/f/field_*.npy >/dev/null
-  t1=$(date +%s.%N)
-  "$tmp/barygrid" barycenter "${ours_args[@]}" --out "$tmp/ours.npy" "$tmp"/f/field_*.npy >/dev/null || true
-  t2=$(date +%s.%N)
-  echo "round $round: peer $(echo "$t1 - $t0" | bc) s, barygrid $(echo "$t2 - $t1" | bc) s, ratio $(echo "scale=3; ($t2 - $t1) / ($t1 - $t0)" | bc)"
+t() { local t0; t0=$(date +%s.%N); "$@" >/dev/null 2>&1 || true; echo "$(date +%s.%N) - $t0" | bc; }
+for round in $(seq "$rounds"); do
+  P=$(t /usr/bin/python3 ../shared/bench/peer_barycenter.py --eps 16 --tol 1e-6 --out "$tmp/peer.npy" "$tmp"/f/field_*.npy)
+  A=$(t "$tmp/barygrid" barycenter --epsilon 16 --tol 1e-6 --force --out "$tmp/ours16.npy" --report "$tmp/r16.json" "$tmp"/f/field_*.npy)
+  B=$(t "$tmp/barygrid" barycenter --tol 1e-6 --force --out "$tmp/ours1.npy" --report "$tmp/r1.json" "$tmp"/f/field_*.npy)
+  echo "round $round, ${size}x${size}: P (peer, eps 16) $P s; barygrid eps 16 $A s (P/$(echo "scale=1; $P / $A" | bc)); default eps 1 px^2 $B s (P/$(echo "scale=2; $P / $B" | bc))"
 done
-/usr/bin/python3 -c "import numpy as np; print('L1(peer, barygrid) =', np.abs(np.load('$tmp/peer.npy') - np.load('$tmp/ours.npy')).sum())"
-rm -rf "$tmp"
+/usr/bin/python3 - "$tmp" <<'PY'
+import json, sys, numpy as np
+d = sys.argv[1]
+print("L1(peer, barygrid) at eps 16:", np.abs(np.load(d + "/peer.npy") - np.load(d + "/ours16.npy")).sum())
+for e in ("16", "1"):
+    r = json.load(open(d + "/r" + e + ".json"))
+    print("eps", e, ": iterations", r["iterations"], "finest level", r["finest_level_iterations"], "levels", r["levels"], "status", r["status"])
+PY
