@@ -94,7 +94,6 @@ func transportLP(t *testing.T, a, b []float64, cost [][]float64) float64 {
 // epsilon (Janati et al. 2020).
 func TestAgainstExactLPBarycenter(t *testing.T) {
 	const side = 4
-	n := side * side
 	inputs := [][]float64{
 		{4, 1, 0, 0, 1, 1, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0},
 		{0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 1, 2, 0, 0, 2, 3},
@@ -109,54 +108,8 @@ func TestAgainstExactLPBarycenter(t *testing.T) {
 		}
 		fields = append(fields, &grid.Field{Rows: side, Cols: side, Data: append([]float64(nil), inputs[i]...), Dx: 1, Dy: 1})
 	}
-	cost := make([][]float64, n)
-	for p := range cost {
-		cost[p] = make([]float64, n)
-		for q := range cost[p] {
-			dx, dy := float64(p%side-q%side), float64(p/side-q/side)
-			cost[p][q] = dx*dx + dy*dy
-		}
-	}
-	// Barycenter LP: variables P_1, P_2, P_3 (n*n each), then b (n).
-	K := len(inputs)
-	nv := K*n*n + n
-	rowsA := K*n + K*n
-	A := mat.NewDense(rowsA, nv, nil)
-	rhs := make([]float64, rowsA)
-	c := make([]float64, nv)
-	for k := 0; k < K; k++ {
-		for i := 0; i < n; i++ {
-			for j := 0; j < n; j++ {
-				v := k*n*n + i*n + j
-				c[v] = w[k] * cost[i][j]
-				A.Set(k*n+i, v, 1)
-				A.Set(K*n+k*n+j, v, 1)
-			}
-			rhs[k*n+i] = inputs[k][i]
-		}
-		for j := 0; j < n; j++ {
-			A.Set(K*n+k*n+j, K*n*n+j, -1)
-		}
-	}
-	// Rows minus columns of P_k, minus the same for P_1, vanish: drop one
-	// column-sum row for every input but the first to keep full row rank.
-	keep := []int{}
-	for r := 0; r < rowsA; r++ {
-		if r >= K*n+n && (r-K*n)%n == n-1 {
-			continue
-		}
-		keep = append(keep, r)
-	}
-	Ak := mat.NewDense(len(keep), nv, nil)
-	bk := make([]float64, len(keep))
-	for i, r := range keep {
-		Ak.SetRow(i, A.RawRowView(r))
-		bk[i] = rhs[r]
-	}
-	opt, _, err := lp.Simplex(c, Ak, bk, 1e-12, nil)
-	if err != nil {
-		t.Fatalf("barycenter LP: %v", err)
-	}
+	opt := lpBarycenter(t, inputs, w, side, side)
+	cost := costMatrix(side, side)
 	objective := func(b []float64) float64 {
 		var s float64
 		for k := range inputs {
