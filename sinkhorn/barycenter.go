@@ -237,8 +237,6 @@ type problem struct {
 	mask          []bool
 	masses        []float64
 	dropped       []float64
-	spreadCache   float64   // spread() once computed; -1 before
-	last          iteration // the final stage's state
 }
 
 func setup(fields []*grid.Field, s Settings) (*problem, error) {
@@ -458,7 +456,7 @@ func Barycenter(fields []*grid.Field, s Settings) (*Result, error) {
 	if err != nil {
 		return nil, err
 	}
-	res := p.solve()
+	res, _ := p.solve()
 	res.Elapsed = time.Since(start)
 	res.Debiased = p.debias
 	res.InputMasses, res.Dropped = p.masses, p.dropped
@@ -475,12 +473,12 @@ func Barycenter(fields []*grid.Field, s Settings) (*Result, error) {
 	return res, nil
 }
 
-// spread is the squared distance that mass must travel, as predicted from
+// travel is the squared distance that mass must travel, as predicted from
 // the inputs' moments: the half distance between centroids plus both
 // spreads. When it exceeds 460 epsilon the kernel between the places that
 // exchange mass is below 1e-200 and the scalings must span more than the
 // float64 range, so the scaling representation would fail.
-func spread(a [][]float64, rows, cols int, dx, dy float64) float64 {
+func travel(a [][]float64, rows, cols int, dx, dy float64) float64 {
 	var ms []grid.Moments
 	for _, x := range a {
 		ms = append(ms, grid.ComputeMoments(&grid.Field{Rows: rows, Cols: cols, Data: x, Dx: dx, Dy: dy}))

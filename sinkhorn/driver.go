@@ -162,8 +162,16 @@ func (p *problem) schedule(levels []*level) []stagePlan {
 // target is at least half a squared pixel of the next level.
 const levelRatio = 2
 
-// solve runs the stages and returns the result on the full grid.
-func (p *problem) solve() *Result {
+// run is the state one solve shares across its stages.
+type run struct {
+	p      *problem
+	res    *Result
+	travel float64 // squared distance mass must travel (see travel)
+}
+
+// solve runs the stages and returns the result on the full grid, with the
+// last stage's state (a transport reads its dual potentials from it).
+func (p *problem) solve() (*Result, iteration) {
 	maxLevels := 16
 	if p.singleScale || p.rho > 0 {
 		// Unbalanced problems scale their inputs by the kernel mass of the
@@ -179,8 +187,15 @@ func (p *problem) solve() *Result {
 		pot = &potentials{g: p.warm.g, d: p.warm.d}
 	}
 	res := &Result{Epsilon: p.eps, Method: MethodLog}
+	rn := &run{p: p, res: res}
+	if p.method == MethodAuto {
+		a := p.a
+		if p.target != nil {
+			a = [][]float64{p.a[0], p.target}
+		}
+		rn.travel = travel(a, p.rows, p.cols, p.dx, p.dy)
+	}
 	used := map[int]bool{}
-	p.spreadCache = -1
 	var it iteration
 	for si, sp := range plan {
 		lv := levels[sp.level]
@@ -200,7 +215,7 @@ func (p *problem) solve() *Result {
 			}
 		}
 		var status Status
-		it, status = p.runStage(lv, sp, pot, tol, budget, final, res)
+		it, status = rn.stage(lv, sp, pot, tol, budget, final)
 		if status == NumericalFailure {
 			break
 		}
@@ -225,22 +240,22 @@ func (p *problem) solve() *Result {
 		res.Barycenter = p.output(lb)
 		res.Band = it.band()
 		res.Warm = &WarmStart{rows: p.rows, cols: p.cols, eps: p.eps, g: pot.g, d: pot.d}
-		p.last = it
 	}
 	if res.Status == NotTerminated {
 		// Every path above sets a status; this guards the promise.
 		res.Status = NumericalFailure
 		res.Message = "solver stopped without a status"
 	}
-	return res
+	return res, it
 }
 
-// runStage solves one stage, choosing the representation: the scaling one
+// stage solves one stage, choosing the representation: the scaling one
 // where it is predicted exact (or forced), else the log domain; a scaling
 // stage that fails is run again in the log domain from the same start
 // (MethodAuto) or reported (MethodScaling).
-func (p *problem) runStage(lv *level, sp stagePlan, pot *potentials, tol float64, budget int, final bool, res *Result) (iteration, Status) {
-	useScaling := p.method == MethodScaling || (p.method == MethodAuto && p.spread()/sp.eps <= 460)
+func (rn *run) stage(lv *level, sp stagePlan, pot *potentials, tol float64, budget int, final bool) (iteration, Status) {
+	p, res := rn.p, rn.res
+	useScaling := p.method == MethodScaling || (p.method == MethodAuto && rn.travel/sp.eps <= 460)
 	relax := p.relax
 	for {
 		var it iteration
@@ -255,7 +270,7 @@ func (p *problem) runStage(lv *level, sp stagePlan, pot *potentials, tol float64
 		if it == nil {
 			it = newLogIter(p, lv, sp.eps, pot)
 		}
-		st, omega, msg := p.iterate(it, lv, sp, tol, budget, final, relax, res)
+		st, omega, msg := rn.iterate(it, lv, sp, tol, budget, final, relax)
 		if st != NumericalFailure {
 			res.Method, res.Relax = it.method(), omega
 			return it, st
@@ -283,7 +298,8 @@ func (p *problem) runStage(lv *level, sp stagePlan, pot *potentials, tol float64
 
 // iterate is the loop of one stage. It returns the stage's status, the
 // final relaxation factor and, on failure, the reason.
-func (p *problem) iterate(it iteration, lv *level, sp stagePlan, tol float64, budget int, final bool, relax float64, res *Result) (Status, float64, string) {
+func (rn *run) iterate(it iteration, lv *level, sp stagePlan, tol float64, budget int, final bool, relax float64) (Status, float64, string) {
+	p, res := rn.p, rn.res
 	start := time.Now()
 	rl := newRelaxation(relax)
 	stage := Stage{Level: sp.level, Rows: lv.rows, Cols: lv.cols, Epsilon: sp.eps, Method: it.method()}
@@ -342,18 +358,6 @@ func (p *problem) iterate(it iteration, lv *level, sp stagePlan, tol float64, bu
 	stage.Elapsed = time.Since(start)
 	res.Stages = append(res.Stages, stage)
 	return status, rl.omega, msg
-}
-
-// spread is the inputs' spread() of the full grid, computed once.
-func (p *problem) spread() float64 {
-	if p.spreadCache < 0 {
-		a := p.a
-		if p.target != nil {
-			a = [][]float64{p.a[0], p.target}
-		}
-		p.spreadCache = spread(a, p.rows, p.cols, p.dx, p.dy)
-	}
-	return p.spreadCache
 }
 
 // upsample carries potentials to a finer level (Schmitzer 2019; Feydy

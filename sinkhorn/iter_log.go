@@ -2,6 +2,7 @@ package sinkhorn
 
 import (
 	"math"
+	"slices"
 
 	"barygrid/grid"
 )
@@ -167,11 +168,7 @@ func (st *logIter) step(omega float64) float64 {
 		}
 		st.resid[k] = v.value(lam)
 	})
-	r := 0.0
-	for _, x := range st.resid {
-		r = math.Max(r, x)
-	}
-	return r
+	return slices.Max(st.resid)
 }
 
 // debias updates log d and records |d K d - b|_1 before the update.

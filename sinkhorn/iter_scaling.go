@@ -3,6 +3,7 @@ package sinkhorn
 import (
 	"fmt"
 	"math"
+	"slices"
 
 	"barygrid/grid"
 )
@@ -34,7 +35,9 @@ type scalingIter struct {
 	tmp          [][]float64 // one per task
 	l            [][]float64 // per chunk: log K u_k at one pixel
 	resid        []float64
-	full         [][]float64 // scratch for truncationError
+	full         *Kernel     // untruncated, for verify (built at the first check)
+	fullBuf      [][]float64 // scratch for verify
+	checks       []float64   // per input: truncation error, untruncated residual
 	dres         float64
 	bad          []string
 }
@@ -210,11 +213,7 @@ func (st *scalingIter) step(omega float64) float64 {
 		}
 		st.resid[k] = vi.value(lam)
 	})
-	r := 0.0
-	for _, x := range st.resid {
-		r = math.Max(r, x)
-	}
-	return r
+	return slices.Max(st.resid)
 }
 
 // debias: d = sqrt(d b / K d), recording |d K d - b|_1 before the update.
@@ -275,17 +274,17 @@ func (st *scalingIter) verify(r, tol float64) (float64, bool) {
 	if st.k.rx >= lv.cols-1 && st.k.ry >= lv.rows-1 {
 		return r, false
 	}
-	full := NewKernel(lv.rows, lv.cols, lv.dx, lv.dy, st.eps, 0)
 	K := len(lv.a)
 	if st.full == nil {
-		st.full = make([][]float64, K)
-		for k := range st.full {
-			st.full[k] = make([]float64, lv.n)
+		st.full = NewKernel(lv.rows, lv.cols, lv.dx, lv.dy, st.eps, 0)
+		st.checks = make([]float64, 2*K)
+		for range K {
+			st.fullBuf = append(st.fullBuf, make([]float64, lv.n))
 		}
 	}
-	e := make([]float64, 2*K)
+	full, e := st.full, st.checks
 	grid.Parallel(K, st.p.workers, func(k int) {
-		buf := st.full[k]
+		buf := st.fullBuf[k]
 		full.Apply(buf, st.v[k], st.tmp[k])
 		var rv violation
 		for i, x := range buf {

@@ -62,13 +62,13 @@ func transport(base *problem, a, b []float64, rho float64) (*TransportResult, er
 	if err := p.checkLimits(); err != nil {
 		return nil, err
 	}
-	r := p.solve()
+	r, last := p.solve()
 	res := &TransportResult{Iterations: r.Iterations, FinestIterations: r.FinestIterations, Residual: r.Residual,
 		Status: r.Status, Message: r.Message, Method: r.Method, Stages: r.Stages}
 	if r.Status == NumericalFailure {
 		return res, fmt.Errorf("sinkhorn: transport failed: %s", r.Message)
 	}
-	F, G, LKv, LKu := p.last.duals()
+	F, G, LKv, LKu := last.duals()
 	res.Cost = dualValue(a, b, F, G, LKv, LKu, p.eps, rho, p.lambda)
 	res.Elapsed = time.Since(start)
 	return res, nil
