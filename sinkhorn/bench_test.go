@@ -47,6 +47,24 @@ func BenchmarkKernel(b *testing.B) {
 				k.apply(dst, src, tmp, scr)
 			}
 		})
+		// Absorbed: built once, then applied to inputs within range, as in
+		// the iteration between rebuilds.
+		b.Run(fmt.Sprintf("absorbed/eps=%g", eps), func(b *testing.B) {
+			a := newAbsKernel(newLogKernel(128, 128, 1, 1, eps))
+			src := make([]float64, 128*128)
+			for r := 0; r < 128; r++ {
+				for c := 0; c < 128; c++ {
+					x, y := float64(c)-50, float64(r)-70
+					src[r*128+c] = (-(x*x+y*y)/8 + 3*x) / eps
+				}
+			}
+			dst := make([]float64, len(src))
+			a.apply(dst, src)
+			src[0] += 1
+			for b.Loop() {
+				a.apply(dst, src)
+			}
+		})
 	}
 }
 

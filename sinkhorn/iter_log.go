@@ -19,6 +19,7 @@ type logIter struct {
 	lb, ld, lkd    []float64
 	tmp            [][]float64
 	scr            []*lseScratch
+	abs            []*absKernel // absorbed instances: K v_k, then K u_k, then K d; nil when over budget
 	l              [][]float64 // per chunk: log K u_k at one pixel
 	resid          []float64
 	dres           float64
@@ -62,8 +63,35 @@ func newLogIter(p *problem, lv *level, eps float64, pot *potentials) *logIter {
 		}
 	}
 	st.resid = make([]float64, K)
-	grid.Parallel(K, p.workers, func(k int) { st.k.apply(st.LKv[k], st.G[k], st.tmp[k], st.scr[k]) })
+	if n := 2*K + 1; float64(n)*absorbBytes(lv, eps) <= absorbBudget {
+		for range n {
+			st.abs = append(st.abs, newAbsKernel(st.k))
+		}
+	}
+	grid.Parallel(K, p.workers, func(k int) { st.conv(k, st.LKv[k], st.G[k], k) })
 	return st
+}
+
+// conv applies the kernel of stream i (see abs) on task's scratch.
+func (st *logIter) conv(i int, dst, src []float64, task int) {
+	if st.abs != nil {
+		st.abs[i].apply(dst, src)
+		return
+	}
+	st.k.apply(dst, src, st.tmp[task], st.scr[task])
+}
+
+// absorbBudget bounds the memory of absorbed kernel instances in one
+// iteration; beyond it the kernel works without absorption (slower, same
+// result).
+const absorbBudget = 1 << 30
+
+// absorbBytes estimates one absorbed instance's memory on the level: the
+// window weights of both passes (about 2 sqrt(absorbDrop / c) + 1 per output
+// and axis), their indices and six arrays of the grid.
+func absorbBytes(lv *level, eps float64) float64 {
+	w := func(h float64) float64 { return 2*math.Sqrt(absorbDrop*eps)/h + 1 }
+	return float64(lv.n) * (8*(w(lv.dx)+w(lv.dy)) + 16 + 6*8)
 }
 
 func (st *logIter) method() Method          { return MethodLog }
@@ -119,7 +147,7 @@ func (st *logIter) step(omega float64) float64 {
 			}
 			F[i] = t
 		}
-		st.k.apply(st.LKu[k], F, st.tmp[k], st.scr[k])
+		st.conv(K+k, st.LKu[k], F, k)
 	})
 	nc := (lv.n + chunk - 1) / chunk
 	grid.Parallel(nc, p.workers, func(c int) {
@@ -153,7 +181,7 @@ func (st *logIter) step(omega float64) float64 {
 			G[i] = t
 		}
 		lkv := st.LKv[k]
-		st.k.apply(lkv, G, st.tmp[k], st.scr[k])
+		st.conv(k, lkv, G, k)
 		var v violation
 		for i, a := range lv.a[k] {
 			m := 0.0
@@ -174,7 +202,8 @@ func (st *logIter) step(omega float64) float64 {
 // debias updates log d and records |d K d - b|_1 before the update.
 func (st *logIter) debias() {
 	ninf := math.Inf(-1)
-	st.k.apply(st.lkd, st.ld, st.tmp[len(st.lv.a)], st.scr[len(st.lv.a)])
+	K := len(st.lv.a)
+	st.conv(2*K, st.lkd, st.ld, K)
 	var v violation
 	for i := range st.ld {
 		if st.lb[i] != ninf {

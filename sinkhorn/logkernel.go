@@ -49,17 +49,20 @@ func newLSEScratch(rows, cols int) *lseScratch {
 func (k *logKernel) apply(dst, src, tmp []float64, s *lseScratch) {
 	// Along x on rows, then transpose so that y is contiguous too.
 	for r := 0; r < k.rows; r++ {
-		lseLine(tmp[r*k.cols:(r+1)*k.cols], src[r*k.cols:(r+1)*k.cols], k.cx, s)
+		lseLine(tmp[r*k.cols:(r+1)*k.cols], src[r*k.cols:(r+1)*k.cols], k.cx, logDrop, s, nil)
 	}
 	transpose(dst, tmp, k.rows, k.cols)
 	for c := 0; c < k.cols; c++ {
-		lseLine(tmp[c*k.rows:(c+1)*k.rows], dst[c*k.rows:(c+1)*k.rows], k.cy, s)
+		lseLine(tmp[c*k.rows:(c+1)*k.rows], dst[c*k.rows:(c+1)*k.rows], k.cy, logDrop, s, nil)
 	}
 	transpose(dst, tmp, k.cols, k.rows)
 }
 
-// lseLine computes out[i] = log sum_j exp(h[j] - c (i-j)^2) for one line.
-func lseLine(out, h []float64, c float64, s *lseScratch) {
+// lseLine computes out[i] = log sum_j exp(h[j] - c (i-j)^2) for one line,
+// dropping terms more than drop below an output's largest. With rec set it
+// also appends each output's window of normalised weights
+// exp(h[j] - c (i-j)^2 - out[i]) (see absKernel).
+func lseLine(out, h []float64, c, drop float64, s *lseScratch, rec *windows) {
 	n := len(h)
 	ninf := math.Inf(-1)
 	// Lower envelope of the parabolas -h_j + c (i - j)^2 over finite h_j.
@@ -94,6 +97,9 @@ func lseLine(out, h []float64, c float64, s *lseScratch) {
 	if m < 0 {
 		for i := range out {
 			out[i] = ninf
+			if rec != nil {
+				rec.add(0, nil)
+			}
 		}
 		return
 	}
@@ -119,29 +125,44 @@ func lseLine(out, h []float64, c float64, s *lseScratch) {
 		d := fi - float64(js)
 		best := h[js] - c*d*d
 		sum := 1.0
+		lo, hi := js, js
 		// Right of j*: once past i the distance only grows, so suf bounds
 		// everything further out.
 		for j := js + 1; j < n; j++ {
 			d := float64(j) - fi
 			cd := c * d * d
-			if j >= i && suf[j]-cd-best < -logDrop {
+			if j >= i && suf[j]-cd-best < -drop {
 				break
 			}
-			if t := h[j] - cd - best; t > -logDrop {
+			if t := h[j] - cd - best; t > -drop {
 				sum += expNeg(t)
+				hi = j
 			}
 		}
 		for j := js - 1; j >= 0; j-- {
 			d := fi - float64(j)
 			cd := c * d * d
-			if j <= i && pre[j]-cd-best < -logDrop {
+			if j <= i && pre[j]-cd-best < -drop {
 				break
 			}
-			if t := h[j] - cd - best; t > -logDrop {
+			if t := h[j] - cd - best; t > -drop {
 				sum += expNeg(t)
+				lo = j
 			}
 		}
 		out[i] = best + math.Log(sum)
+		if rec != nil {
+			w := rec.grow(hi - lo + 1)
+			for j := lo; j <= hi; j++ {
+				d := float64(j) - fi
+				if t := h[j] - c*d*d - best; t > -drop {
+					w[j-lo] = expNeg(t) / sum
+				} else {
+					w[j-lo] = 0
+				}
+			}
+			rec.add(lo, w)
+		}
 	}
 }
 
@@ -153,8 +174,8 @@ var expTab = func() (t [64]float64) {
 	return
 }()
 
-// expNeg returns exp(x) for x in [-logDrop, 0] (a few ulp, checked against
-// math.Exp in TestExpNeg): x = (n/64) ln 2 + r with |r| <= ln2/128, then
+// expNeg returns exp(x) for x in [-700, 700] (a few ulp, checked against
+// math.Exp in TestExpNeg; the kernels call it on [-absorbDrop, absorbMax]): x = (n/64) ln 2 + r with |r| <= ln2/128, then
 // 2^(n/64) from a table and exp(r) from its Taylor polynomial of degree 6
 // (remainder below 1e-18). It is several times cheaper than math.Exp, which
 // handles the whole range.

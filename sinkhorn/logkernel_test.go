@@ -62,7 +62,7 @@ func TestLogKernelTruncation(t *testing.T) {
 		}
 		want := fullLSE(h, c)
 		got := make([]float64, n)
-		lseLine(got, h, c, s)
+		lseLine(got, h, c, logDrop, s, nil)
 		for i := range got {
 			if math.IsInf(want[i], -1) {
 				if !math.IsInf(got[i], -1) {
@@ -117,7 +117,7 @@ func TestLogKernelDense(t *testing.T) {
 func TestExpNeg(t *testing.T) {
 	worst := 0.0
 	for i := 0; i <= 1000000; i++ {
-		x := -logDrop * float64(i) / 1000000
+		x := -absorbDrop + (absorbDrop+absorbMax)*float64(i)/1000000
 		e := math.Abs(expNeg(x)/math.Exp(x) - 1)
 		worst = math.Max(worst, e)
 	}
@@ -125,4 +125,68 @@ func TestExpNeg(t *testing.T) {
 		t.Errorf("largest relative error %g", worst)
 	}
 	t.Logf("largest relative error %.3g", worst)
+}
+
+// denseLSE is the 2-D definition: log sum_q exp(src(q) - |p - q|^2 / eps).
+func denseLSE(src []float64, rows, cols int, dx, dy, eps float64) []float64 {
+	out := make([]float64, len(src))
+	for p := range out {
+		m := math.Inf(-1)
+		for q, x := range src {
+			ddx, ddy := dx*float64(p%cols-q%cols), dy*float64(p/cols-q/cols)
+			m = math.Max(m, x-(ddx*ddx+ddy*ddy)/eps)
+		}
+		var s float64
+		for q, x := range src {
+			ddx, ddy := dx*float64(p%cols-q%cols), dy*float64(p/cols-q/cols)
+			s += math.Exp(x - (ddx*ddx+ddy*ddy)/eps - m)
+		}
+		out[p] = m + math.Log(s)
+	}
+	return out
+}
+
+// The absorbed kernel equals the dense definition for inputs that drift
+// from the one it was built for, within the absorption range (no rebuild)
+// and beyond it (rebuilt), with zero-mass holes, anisotropic pixels and odd
+// sizes. The potential is a tilted paraboloid over epsilon, whose range is
+// far beyond exp's, as converged potentials are.
+func TestAbsorbedKernel(t *testing.T) {
+	const rows, cols = 23, 17
+	dx, dy, eps := 1.0, 1.4, 0.8
+	rng := rand.New(rand.NewPCG(7, 8))
+	h0 := make([]float64, rows*cols)
+	for i := range h0 {
+		x, y := float64(i%cols)-6, float64(i/cols)-13
+		h0[i] = (-(x*x+y*y)/3 + 4*x - 2*y) / eps
+		if rng.Float64() < 0.1 {
+			h0[i] = math.Inf(-1)
+		}
+	}
+	a := newAbsKernel(newLogKernel(rows, cols, dx, dy, eps))
+	got := make([]float64, rows*cols)
+	worst := 0.0
+	for trial, amp := range []float64{0, 1, 3, 6.9, 6.9, 20} {
+		h := append([]float64(nil), h0...)
+		for i := range h {
+			if !math.IsInf(h[i], -1) {
+				h[i] += amp * (2*rng.Float64() - 1)
+			}
+		}
+		before := a.builds
+		a.apply(got, h)
+		want := denseLSE(h, rows, cols, dx, dy, eps)
+		for i := range got {
+			e := math.Abs(got[i] - want[i])
+			worst = math.Max(worst, e)
+			if e > 1e-12 {
+				t.Fatalf("trial %d (drift %g): pixel %d: %.15g, dense %.15g", trial, amp, i, got[i], want[i])
+			}
+		}
+		rebuilt := a.builds > before
+		if wantRebuild := trial == 0 || amp > absorbMax; rebuilt != wantRebuild {
+			t.Errorf("trial %d (drift %g): rebuilt %v", trial, amp, rebuilt)
+		}
+	}
+	t.Logf("largest error in the log of an output: %.3g", worst)
 }

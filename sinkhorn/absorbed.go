@@ -1,0 +1,155 @@
+package sinkhorn
+
+import "math"
+
+// Absorption for the log-domain kernel (Schmitzer, SIAM J. Sci. Comput.
+// 41(3), 2019, stabilised scaling, applied here to each 1-D pass). A kernel
+// instance is built for a reference input h0 (log-sum-exp windows, see
+// lseLine) and keeps, for both passes, the normalised weights
+// exp(h0_j - c (i - j)^2 - out0_i) of each output's window. While the input
+// h stays within absorbMax of h0 the kernel is
+//
+//	out = out0 + log( W2 (W1 exp(h - h0)) )
+//
+// with W1, W2 the two passes' window weights: one exp and one log per
+// pixel and multiply-adds, instead of a dozen exps per output and pass.
+// Terms dropped at build time were below exp(-absorbDrop) of an output's
+// largest; with |h - h0| <= absorbMax in both passes they stay below
+// exp(-absorbDrop + 4 absorbMax) = exp(-22), and the instance is rebuilt
+// (exactly) as soon as the input leaves that range or changes where it is
+// -Inf. TestAbsorbedKernel checks it against the full sum.
+const (
+	absorbDrop = 50.0
+	absorbMax  = 7.0
+)
+
+// windows holds the weights of every output of a pass: output o's weights
+// are w[off[o]:off[o+1]] for inputs lo[o], lo[o]+1, ... of its line.
+type windows struct {
+	lo, off []int32
+	w       []float64
+}
+
+func (r *windows) reset() {
+	r.lo, r.off, r.w = r.lo[:0], append(r.off[:0], 0), r.w[:0]
+}
+
+// grow appends n weights and returns them to be filled.
+func (r *windows) grow(n int) []float64 {
+	r.w = append(r.w, make([]float64, n)...)
+	return r.w[len(r.w)-n:]
+}
+
+// add closes one output's window (grow was called for its weights).
+func (r *windows) add(lo int, _ []float64) {
+	if r == nil {
+		return
+	}
+	r.lo = append(r.lo, int32(lo))
+	r.off = append(r.off, int32(len(r.w)))
+}
+
+// absKernel is one absorbed instance of a log kernel, for one stream of
+// inputs (for example K applied to G_k, iteration after iteration).
+type absKernel struct {
+	k                *logKernel
+	s                *lseScratch
+	ref, out0        []float64 // reference input and its output, row-major
+	p1, p2           windows   // pass 1 along rows, pass 2 along columns (transposed)
+	e, s1, tmp, tmp2 []float64
+	built            bool
+	builds           int
+}
+
+func newAbsKernel(k *logKernel) *absKernel {
+	n := k.rows * k.cols
+	return &absKernel{k: k, s: newLSEScratch(k.rows, k.cols), ref: make([]float64, n), out0: make([]float64, n),
+		e: make([]float64, n), s1: make([]float64, n), tmp: make([]float64, n), tmp2: make([]float64, n)}
+}
+
+// near reports whether src is within absorbMax of the reference and -Inf
+// exactly where it is.
+func (a *absKernel) near(src []float64) bool {
+	if !a.built {
+		return false
+	}
+	ninf := math.Inf(-1)
+	for i, x := range src {
+		r := a.ref[i]
+		if (x == ninf) != (r == ninf) {
+			return false
+		}
+		if x != ninf && !(math.Abs(x-r) <= absorbMax) {
+			return false
+		}
+	}
+	return true
+}
+
+// rebuild computes the output for src exactly and keeps its windows.
+func (a *absKernel) rebuild(dst, src []float64) {
+	k := a.k
+	copy(a.ref, src)
+	a.p1.reset()
+	a.p2.reset()
+	for r := 0; r < k.rows; r++ {
+		lseLine(a.tmp[r*k.cols:(r+1)*k.cols], src[r*k.cols:(r+1)*k.cols], k.cx, absorbDrop, a.s, &a.p1)
+	}
+	transpose(a.tmp2, a.tmp, k.rows, k.cols)
+	for c := 0; c < k.cols; c++ {
+		lseLine(a.tmp[c*k.rows:(c+1)*k.rows], a.tmp2[c*k.rows:(c+1)*k.rows], k.cy, absorbDrop, a.s, &a.p2)
+	}
+	transpose(a.out0, a.tmp, k.cols, k.rows)
+	copy(dst, a.out0)
+	a.built = true
+	a.builds++
+}
+
+// apply writes the log-domain kernel of src to dst.
+func (a *absKernel) apply(dst, src []float64) {
+	if !a.near(src) {
+		a.rebuild(dst, src)
+		return
+	}
+	k := a.k
+	ninf := math.Inf(-1)
+	for i, x := range src {
+		a.e[i] = 0
+		if x != ninf {
+			a.e[i] = expNeg(x - a.ref[i])
+		}
+	}
+	// Pass 1 along rows; its output goes transposed into s1, so that pass 2
+	// reads contiguous columns.
+	for r := 0; r < k.rows; r++ {
+		e := a.e[r*k.cols : (r+1)*k.cols]
+		for c := 0; c < k.cols; c++ {
+			o := r*k.cols + c
+			a.s1[c*k.rows+r] = dotWindow(a.p1.w[a.p1.off[o]:a.p1.off[o+1]], e[a.p1.lo[o]:])
+		}
+	}
+	for c := 0; c < k.cols; c++ {
+		s1 := a.s1[c*k.rows : (c+1)*k.rows]
+		for r := 0; r < k.rows; r++ {
+			o := c*k.rows + r
+			s := dotWindow(a.p2.w[a.p2.off[o]:a.p2.off[o+1]], s1[a.p2.lo[o]:])
+			i := r*k.cols + c
+			dst[i] = a.out0[i] + math.Log(s)
+		}
+	}
+}
+
+// dotWindow returns sum_j w[j] x[j] over w's length.
+func dotWindow(w, x []float64) float64 {
+	x = x[:len(w)]
+	var s0, s1 float64
+	j := 0
+	for ; j+1 < len(w); j += 2 {
+		s0 += w[j] * x[j]
+		s1 += w[j+1] * x[j+1]
+	}
+	if j < len(w) {
+		s0 += w[j] * x[j]
+	}
+	return s0 + s1
+}
