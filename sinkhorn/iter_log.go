@@ -20,7 +20,7 @@ type logIter struct {
 	tmp            [][]float64
 	scr            []*lseScratch
 	abs            []*absKernel // absorbed instances: K v_k, then K u_k, then K d; nil when over budget
-	l              [][]float64 // per chunk: log K u_k at one pixel
+	l              [][]float64  // per chunk: log K u_k at one pixel
 	resid          []float64
 	dres           float64
 }
