@@ -1,0 +1,133 @@
+package main
+
+import (
+	"os"
+	"path/filepath"
+	"strconv"
+	"strings"
+	"testing"
+
+	"barygrid/grid"
+	"barygrid/io/fieldfile"
+)
+
+// batch honours --resample: a group whose files differ in shape is
+// computed on the requested grid instead of failing.
+func TestBatchResamples(t *testing.T) {
+	dir := t.TempDir()
+	in, out := filepath.Join(dir, "in"), filepath.Join(dir, "out")
+	os.MkdirAll(filepath.Join(in, "g"), 0o755)
+	fieldfile.Save(filepath.Join(in, "g", "a.npy"), blob(20, 20, 8, 9, 3), fieldfile.SaveSettings{})
+	fieldfile.Save(filepath.Join(in, "g", "b.npy"), blob(24, 24, 12, 12, 4), fieldfile.SaveSettings{})
+	code, _, errs := runCLI(t, "batch", "--epsilon", "2", "--quiet", "--resample", "20x20", "--out", out, in)
+	if code != 0 {
+		t.Fatalf("exit %d: %s", code, errs)
+	}
+	b, err := fieldfile.Load(filepath.Join(out, "g", "barycenter.npy"), fieldfile.LoadSettings{})
+	if err != nil || b.Rows != 20 || b.Cols != 20 {
+		t.Fatalf("barycenter %v, %v", b, err)
+	}
+}
+
+// The resume key covers every setting that changes the result: a rerun with
+// another over-relaxation, with --drop-outside, or with a mask whose contents
+// changed recomputes the group instead of skipping it as up to date.
+func TestBatchResumeKeyCoversSettings(t *testing.T) {
+	dir := t.TempDir()
+	in, out := filepath.Join(dir, "in"), filepath.Join(dir, "out")
+	makeGroups(t, in, "g")
+	mask := filepath.Join(dir, "mask.npy")
+	m := grid.New(20, 20)
+	for i := range m.Data {
+		m.Data[i] = 1
+	}
+	fieldfile.Save(mask, m, fieldfile.SaveSettings{})
+	base := []string{"batch", "--epsilon", "2", "--quiet", "--mask", mask, "--out", out}
+	status := func(extra ...string) string {
+		t.Helper()
+		code, _, errs := runCLI(t, append(append(append([]string{}, base...), extra...), in)...)
+		if code != 0 {
+			t.Fatalf("exit %d: %s", code, errs)
+		}
+		return readSummary(t, filepath.Join(out, "summary.csv"))["g"][1]
+	}
+	if s := status(); s != "ok" {
+		t.Fatalf("first run %s", s)
+	}
+	if s := status(); s != "skipped" {
+		t.Fatalf("unchanged rerun %s, want skipped", s)
+	}
+	if s := status("--relax", "1.5"); s != "ok" {
+		t.Errorf("rerun with --relax 1.5: %s, want recomputed", s)
+	}
+	if s := status("--relax", "1.5", "--drop-outside"); s != "ok" {
+		t.Errorf("rerun with --drop-outside: %s, want recomputed", s)
+	}
+	m.Data[0] = 0 // same file name, other contents
+	fieldfile.Save(mask, m, fieldfile.SaveSettings{Force: true})
+	if s := status("--relax", "1.5", "--drop-outside"); s != "ok" {
+		t.Errorf("rerun with a changed mask: %s, want recomputed", s)
+	}
+}
+
+// Group folders are readable by colleagues (not 0700), and a group given as
+// a symbolic link to a folder is found like any other.
+func TestBatchFolderModeAndLinks(t *testing.T) {
+	dir := t.TempDir()
+	in, out := filepath.Join(dir, "in"), filepath.Join(dir, "out")
+	makeGroups(t, in, "g1")
+	makeGroups(t, filepath.Join(dir, "elsewhere"), "g2")
+	if err := os.Symlink(filepath.Join(dir, "elsewhere", "g2"), filepath.Join(in, "g2")); err != nil {
+		t.Skip("no symbolic links here:", err)
+	}
+	code, _, errs := runCLI(t, "batch", "--epsilon", "2", "--quiet", "--out", out, in)
+	if code != 0 {
+		t.Fatalf("exit %d: %s", code, errs)
+	}
+	for _, g := range []string{"g1", "g2"} {
+		st, err := os.Stat(filepath.Join(out, g))
+		if err != nil {
+			t.Fatalf("group %s: %v", g, err)
+		}
+		if st.Mode().Perm()&0o055 != 0o055 {
+			t.Errorf("group %s folder mode %v, want readable by group and others", g, st.Mode().Perm())
+		}
+	}
+}
+
+// Two batch runs on one output folder do not both compute: the second
+// refuses with a one-line error naming the process that holds the folder,
+// and a finished run leaves no lock behind.
+func TestBatchLocksOutput(t *testing.T) {
+	dir := t.TempDir()
+	in, out := filepath.Join(dir, "in"), filepath.Join(dir, "out")
+	makeGroups(t, in, "g")
+	if code, _, errs := runCLI(t, "batch", "--epsilon", "2", "--quiet", "--out", out, in); code != 0 {
+		t.Fatalf("exit %d: %s", code, errs)
+	}
+	lock := filepath.Join(out, ".barygrid-batch.lock")
+	if _, err := os.Stat(lock); err == nil {
+		t.Fatal("a finished run left its lock")
+	}
+	// A live holder: this test process.
+	os.WriteFile(lock, []byte(strconv.Itoa(os.Getpid())+"\n"), 0o644)
+	code, _, errs := runCLI(t, "batch", "--epsilon", "2", "--quiet", "--force", "--out", out, in)
+	if code != 1 || !strings.Contains(errs, strconv.Itoa(os.Getpid())) || strings.Count(strings.TrimSpace(errs), "\n") != 0 {
+		t.Errorf("exit %d, stderr %q: want 1 and one line naming process %d", code, errs, os.Getpid())
+	}
+	// A holder that is gone: the lock is stale and taken over.
+	os.WriteFile(lock, []byte("999999999\n"), 0o644)
+	if code, _, errs := runCLI(t, "batch", "--epsilon", "2", "--quiet", "--out", out, in); code != 0 {
+		t.Errorf("stale lock: exit %d: %s", code, errs)
+	}
+}
+
+// Help shows a computed default in words, never "(default: 0)".
+func TestHelpShowsNoZeroDefaults(t *testing.T) {
+	for _, cmd := range []string{"barycenter", "batch", "morph", "distance", "gauss"} {
+		_, out, errs := runCLI(t, cmd, "--help")
+		if strings.Contains(out+errs, "(default: 0)") {
+			t.Errorf("%s --help shows (default: 0)", cmd)
+		}
+	}
+}

@@ -1,0 +1,31 @@
+package grid
+
+import (
+	"strings"
+	"testing"
+)
+
+// A panic in a worker reaches the caller's goroutine, where a deferred
+// recover (the command line's) can turn it into an error, instead of
+// killing the process.
+func TestParallelCarriesPanics(t *testing.T) {
+	for _, workers := range []int{1, 2, 4} {
+		func() {
+			defer func() {
+				r := recover()
+				if r == nil || !strings.Contains(r.(error).Error(), "boom") {
+					t.Errorf("workers %d: recovered %v", workers, r)
+				}
+			}()
+			Parallel(8, workers, func(i int) {
+				if i == 5 {
+					panic(errorString("boom"))
+				}
+			})
+		}()
+	}
+}
+
+type errorString string
+
+func (e errorString) Error() string { return string(e) }
