@@ -25,11 +25,11 @@ func solverFlags() []cli.Flag {
 		&cli.IntFlag{Name: "max-iter", Value: 10000, Usage: "iteration cap"},
 		&cli.BoolFlag{Name: "debias", Usage: "remove the blur of a large epsilon (debiased barycenter); on thin structures its answer can grow streaks and it converges slowly, so it is off by default"},
 		&cli.StringFlag{Name: "method", Value: "auto", Usage: "iteration: auto, scaling or log"},
-		&cli.IntFlag{Name: "threads", Usage: "worker goroutines (default: all CPUs; results do not depend on it)"},
-		&cli.Float64Flag{Name: "unbalanced", Usage: "KL-relaxed marginals with penalty `RHO` (squared physical units): inputs keep their masses (plain, not debiased)"},
+		&cli.IntFlag{Name: "threads", DefaultText: "all CPUs", Usage: "worker goroutines (results do not depend on it)"},
+		&cli.Float64Flag{Name: "unbalanced", DefaultText: "off: every input is normalised to the same mass", Usage: "let total intensity differ between inputs: creating or destroying mass costs `RHO` (squared physical units) per unit of mass mismatch, moving it costs its squared distance (KL-relaxed marginals)"},
 		&cli.StringFlag{Name: "mask", Usage: "confine the barycenter to the non-zero pixels of `FILE`"},
 		&cli.BoolFlag{Name: "drop-outside", Usage: "drop input mass outside the mask (reported) instead of failing"},
-		&cli.Float64Flag{Name: "relax", Usage: "over-relaxation factor in (0, 2); 1 is the plain iteration (default: chosen from the observed convergence rate)"},
+		&cli.Float64Flag{Name: "relax", DefaultText: "chosen from the observed convergence rate", Usage: "over-relaxation factor in (0, 2) that speeds the iteration up; 1 is the plain iteration"},
 	}
 }
 

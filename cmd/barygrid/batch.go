@@ -47,7 +47,11 @@ func discoverGroups(dir string) ([]group, error) {
 	}
 	var gs []group
 	for _, e := range entries {
-		if !e.IsDir() || strings.HasPrefix(e.Name(), ".") {
+		if strings.HasPrefix(e.Name(), ".") {
+			continue
+		}
+		// Stat follows symbolic links: a linked folder is a group too.
+		if st, err := os.Stat(filepath.Join(dir, e.Name())); err != nil || !st.IsDir() {
 			continue
 		}
 		files, err := os.ReadDir(filepath.Join(dir, e.Name()))
@@ -223,7 +227,7 @@ func batchCommand() *cli.Command {
 	flags = append(flags,
 		&cli.StringFlag{Name: "out", Usage: "output folder (required)"},
 		&cli.StringFlag{Name: "manifest", Usage: "CSV with columns group,file[,weight] instead of subfolders"},
-		&cli.IntFlag{Name: "jobs", Usage: "groups in parallel (default: CPUs, bounded by --memory)"},
+		&cli.IntFlag{Name: "jobs", DefaultText: "CPUs, bounded by --memory", Usage: "groups in parallel"},
 		&cli.Float64Flag{Name: "memory", Value: 8, Usage: "GiB the parallel groups may use together (estimate)"},
 		&cli.StringFlag{Name: "shard", Usage: "process only shard `i/n` of the groups (deterministic; for array jobs)"},
 		&cli.BoolFlag{Name: "force", Usage: "recompute groups whose outputs are up to date"},
@@ -283,12 +287,28 @@ func runBatch(c *cli.Context) error {
 	if err != nil {
 		return err
 	}
+	resample, err := parseResample(c.String("resample"))
+	if err != nil {
+		return err
+	}
 	if err := os.MkdirAll(out, 0o755); err != nil {
 		return fmt.Errorf("%s: %v", out, err)
 	}
+	release, err := lockOutput(out)
+	if err != nil {
+		return err
+	}
+	defer release()
 	settings := map[string]any{"epsilon": s.Epsilon, "tol": s.Tol, "max_iter": s.MaxIter, "debias": s.Debias,
 		"method": c.String("method"), "unbalanced": s.Unbalanced, "pixel_size": c.String("pixel-size"),
-		"invert": ls.Invert, "background": c.String("background"), "mask": c.String("mask")}
+		"invert": ls.Invert, "background": c.String("background"), "mask": c.String("mask"),
+		"relax": s.Relax, "drop_outside": s.DropOutside, "resample": c.String("resample"), "unit": ls.Unit}
+	if p := c.String("mask"); p != "" {
+		// The mask's contents, not only its name, decide the result.
+		if settings["mask_sha256"], err = checksum(p); err != nil {
+			return err
+		}
+	}
 
 	jobs := c.Int("jobs")
 	if jobs <= 0 {
@@ -337,7 +357,7 @@ func runBatch(c *cli.Context) error {
 		g := groups[i]
 		ss := s
 		ss.Workers = workers
-		rows[i] = processGroup(g, out, ls, ss, settings, c.Bool("force"), c.String("mask"))
+		rows[i] = processGroup(g, groupJob{out: out, load: ls, resample: resample, solver: ss, settings: settings, force: c.Bool("force")})
 		r := rows[i]
 		switch r.Status {
 		case "failed":
@@ -395,10 +415,21 @@ func writeSummary(path string, rows []summaryRow) error {
 	})
 }
 
+// groupJob is what every group of a batch shares.
+type groupJob struct {
+	out      string
+	load     fieldfile.LoadSettings
+	resample [2]int // rows, cols; zero: off
+	solver   sinkhorn.Settings
+	settings map[string]any // every setting that changes a result (the resume key)
+	force    bool
+}
+
 // processGroup computes one group into a temporary folder beside OUT/GROUP
 // and renames it into place, so a failure leaves no partial output and an
 // earlier complete result stays until the new one is whole.
-func processGroup(g group, out string, ls fieldfile.LoadSettings, s sinkhorn.Settings, settings map[string]any, force bool, maskPath string) summaryRow {
+func processGroup(g group, job groupJob) summaryRow {
+	out, ls, s, settings, force := job.out, job.load, job.solver, job.settings, job.force
 	row := summaryRow{Group: g.Name, Inputs: len(g.Files)}
 	fail := func(err error) summaryRow {
 		row.Status, row.Message = "failed", strings.ReplaceAll(err.Error(), "\n", "; ")
@@ -432,6 +463,9 @@ func processGroup(g group, out string, ls fieldfile.LoadSettings, s sinkhorn.Set
 			return fail(err)
 		}
 		inputs[i].Mass = fs[i].Mass()
+	}
+	if err := resampleAll(fs, g.Files, job.resample); err != nil {
+		return fail(err)
 	}
 	if err := grid.SameShape(fs, g.Files); err != nil {
 		return fail(err)
@@ -469,6 +503,10 @@ func processGroup(g group, out string, ls fieldfile.LoadSettings, s sinkhorn.Set
 	tmp, err := os.MkdirTemp(out, "."+g.Name+".tmp")
 	if err != nil {
 		return fail(fmt.Errorf("%s: %v", out, unwrapErr(err)))
+	}
+	// MkdirTemp makes it private (0700); results are for colleagues too.
+	if err := os.Chmod(tmp, 0o755); err != nil {
+		return fail(fmt.Errorf("%s: %v", tmp, unwrapErr(err)))
 	}
 	defer os.RemoveAll(tmp) // no-op after a successful rename
 	save := func(name string, f *grid.Field, st fieldfile.SaveSettings) error {

@@ -11,21 +11,25 @@ import (
 	"barygrid/io/fieldfile"
 )
 
-// batch honours --resample: a group whose files differ in shape is
-// computed on the requested grid instead of failing.
+// batch honours --resample: the group is computed on the requested grid
+// (resampling keeps the physical extent, so the pixel size grows), as the
+// barycenter command does.
 func TestBatchResamples(t *testing.T) {
 	dir := t.TempDir()
 	in, out := filepath.Join(dir, "in"), filepath.Join(dir, "out")
 	os.MkdirAll(filepath.Join(in, "g"), 0o755)
-	fieldfile.Save(filepath.Join(in, "g", "a.npy"), blob(20, 20, 8, 9, 3), fieldfile.SaveSettings{})
+	fieldfile.Save(filepath.Join(in, "g", "a.npy"), blob(24, 24, 8, 9, 3), fieldfile.SaveSettings{})
 	fieldfile.Save(filepath.Join(in, "g", "b.npy"), blob(24, 24, 12, 12, 4), fieldfile.SaveSettings{})
 	code, _, errs := runCLI(t, "batch", "--epsilon", "2", "--quiet", "--resample", "20x20", "--out", out, in)
 	if code != 0 {
-		t.Fatalf("exit %d: %s", code, errs)
+		t.Fatalf("exit %d: %s %v", code, errs, readSummary(t, filepath.Join(out, "summary.csv"))["g"])
 	}
 	b, err := fieldfile.Load(filepath.Join(out, "g", "barycenter.npy"), fieldfile.LoadSettings{})
-	if err != nil || b.Rows != 20 || b.Cols != 20 {
-		t.Fatalf("barycenter %v, %v", b, err)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if b.Rows != 20 || b.Cols != 20 {
+		t.Fatalf("barycenter is %dx%d, want the resampled 20x20", b.Rows, b.Cols)
 	}
 }
 

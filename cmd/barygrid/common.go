@@ -98,21 +98,44 @@ func loadFields(c *cli.Context, files []string) ([]*grid.Field, error) {
 		}
 		fs = append(fs, f)
 	}
-	if v := c.String("resample"); v != "" {
-		var rows, cols int
-		if _, err := fmt.Sscanf(v, "%dx%d", &rows, &cols); err != nil || rows < 2 || cols < 2 {
-			return nil, usagef("--resample: want ROWSxCOLS, got %q", v)
-		}
-		for i, f := range fs {
-			if fs[i], err = grid.Resample(f, rows, cols); err != nil {
-				return nil, fmt.Errorf("%s: %w", files[i], err)
-			}
-		}
+	shape, err := parseResample(c.String("resample"))
+	if err != nil {
+		return nil, err
+	}
+	if err := resampleAll(fs, files, shape); err != nil {
+		return nil, err
 	}
 	if err := grid.SameShape(fs, files); err != nil {
 		return nil, fmt.Errorf("%v (use --resample ROWSxCOLS)", err)
 	}
 	return fs, nil
+}
+
+// parseResample reads --resample ROWSxCOLS; "" is off (zero shape).
+func parseResample(v string) ([2]int, error) {
+	if v == "" {
+		return [2]int{}, nil
+	}
+	var rows, cols int
+	if _, err := fmt.Sscanf(v, "%dx%d", &rows, &cols); err != nil || rows < 2 || cols < 2 {
+		return [2]int{}, usagef("--resample: want ROWSxCOLS, got %q", v)
+	}
+	return [2]int{rows, cols}, nil
+}
+
+// resampleAll resamples every field to shape in place (a zero shape: off).
+func resampleAll(fs []*grid.Field, files []string, shape [2]int) error {
+	if shape[0] == 0 {
+		return nil
+	}
+	for i, f := range fs {
+		g, err := grid.Resample(f, shape[0], shape[1])
+		if err != nil {
+			return fmt.Errorf("%s: %w", files[i], err)
+		}
+		fs[i] = g
+	}
+	return nil
 }
 
 func saveSettings(c *cli.Context) fieldfile.SaveSettings {

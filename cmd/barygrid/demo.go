@@ -52,7 +52,7 @@ func demoCommand() *cli.Command {
 				}
 				s := sinkhorn.Settings{Tol: demoTol, Workers: c.Int("threads")}
 				settings := map[string]any{"tol": demoTol, "pixel_size": set.load.Dx, "unit": set.load.Unit}
-				r := processGroup(g, dir, set.load, s, settings, force, "")
+				r := processGroup(g, groupJob{out: dir, load: set.load, solver: s, settings: settings, force: force})
 				if r.Status == "failed" {
 					return fmt.Errorf("demo group %s failed: %s", set.name, r.Message)
 				}
