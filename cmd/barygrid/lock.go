@@ -47,4 +47,3 @@ func lockOutput(dir string) (release func(), err error) {
 	}
 	return nil, fmt.Errorf("%s: could not take the lock %s", dir, path)
 }
-
