@@ -56,6 +56,7 @@ type level struct {
 	a, la         [][]float64
 	target, lt    []float64 // fixed second marginal and its log (transport)
 	mask          []bool
+	mass          []float64 // of each input, for the relative violation
 }
 
 // stagePlan is one epsilon stage: its level and epsilon.
@@ -83,8 +84,10 @@ func (p *problem) fullLevel() *level {
 
 func (lv *level) fillLogs() {
 	lv.la = make([][]float64, len(lv.a))
+	lv.mass = make([]float64, len(lv.a))
 	for k, a := range lv.a {
 		lv.la[k] = logOf(a)
+		lv.mass[k] = grid.Sum(a)
 	}
 	if lv.target != nil {
 		lv.lt = logOf(lv.target)
@@ -199,6 +202,9 @@ func (p *problem) solve() (*Result, iteration) {
 	var it iteration
 	for si, sp := range plan {
 		lv := levels[sp.level]
+		if p.rho > 0 && !p.product && sp.eps != p.eps {
+			lv = p.unbalancedStage(lv, sp.eps)
+		}
 		used[sp.level] = true
 		if pot != nil && pot.level != sp.level {
 			pot = upsample(pot, levels, sp.level)
@@ -514,11 +520,40 @@ func (r *relaxation) update(hist []float64) {
 	r.best = cur
 }
 
+// unbalancedStage returns the level as the problem at epsilon eps sees it:
+// the inputs are scaled by the kernel mass Z at the target epsilon (see
+// setup), so a stage at another epsilon rescales them by Z(eps) / Z(target)
+// to solve the same formulation there, not one whose masses are off by
+// that ratio (measured: a warm start 10^5 off in mass that the slow mass
+// mode then never corrected).
+func (p *problem) unbalancedStage(lv *level, eps float64) *level {
+	z := kernelMass(lv.cols, lv.dx, eps) * kernelMass(lv.rows, lv.dy, eps) / p.refMass
+	out := *lv
+	out.a = make([][]float64, len(lv.a))
+	for k, a := range lv.a {
+		out.a[k] = make([]float64, len(a))
+		for i, x := range a {
+			out.a[k][i] = x * z
+		}
+	}
+	out.fillLogs()
+	return &out
+}
+
+// lambdaAt is the exponent rho / (rho + eps) of the KL-relaxed updates at
+// epsilon eps (Chizat et al. 2018); 1 when balanced.
+func (p *problem) lambdaAt(eps float64) float64 {
+	if p.rho == 0 {
+		return 1
+	}
+	return p.rho / (p.rho + eps)
+}
+
 // logMarginal returns log b at pixel i of the level, given l[k] = log K u_k
 // there and ld = log d (0 when plain): the fixed target of a transport, -Inf
 // outside a mask, the weighted geometric mean (balanced) or the power mean of
 // order 1 - lambda (unbalanced; Chizat et al. 2018), times d.
-func (p *problem) logMarginal(lv *level, i int, l []float64, ld float64) float64 {
+func (p *problem) logMarginal(lv *level, i int, l []float64, ld, lambda float64) float64 {
 	if lv.lt != nil {
 		return lv.lt[i]
 	}
@@ -526,14 +561,14 @@ func (p *problem) logMarginal(lv *level, i int, l []float64, ld float64) float64
 		return math.Inf(-1)
 	}
 	var s float64
-	if p.lambda == 1 {
+	if lambda == 1 {
 		for k, x := range l {
 			if p.w[k] != 0 {
 				s += p.w[k] * x
 			}
 		}
 	} else {
-		s = powerMeanLog(l, p.w, 1-p.lambda)
+		s = powerMeanLog(l, p.w, 1-lambda)
 	}
 	s += ld
 	if math.IsNaN(s) {
@@ -565,6 +600,78 @@ func powerMeanLog(l, w []float64, q float64) float64 {
 	return m + math.Log1p(s)/q
 }
 
+// massMode accelerates the slow mode of an unbalanced barycenter: constant
+// shifts beta_k of log v_k with sum_k w_k beta_k = 0 (how the inputs' plans
+// share mass) leave b nearly unchanged (the power mean of order 1 - lambda
+// is near the geometric one) and contract only by m = 1 - omega (1 -
+// lambda^2) per iteration, which never ends as the penalty grows (lambda ->
+// 1). It measures each plan's shift per iteration (the b-weighted mean
+// change of log v_k), and once two successive shifts contract by m, as a
+// pure mode does (Aitken's test), it jumps the rest of the way: the
+// remaining geometric series, shift * m / (1 - m). This is the
+// translation-invariant idea (Sejourne, Vialard, Peyre, AISTATS 2022)
+// applied to the barycenter's own mode.
+//
+// dist is the mode's remaining distance to its fixed point as the last step
+// measured it, max_k |shift_k| m / (1 - m); it is part of the residual.
+type massMode struct {
+	w, delta, prev []float64
+	dist           float64
+}
+
+func newMassMode(p *problem) *massMode {
+	if p.rho == 0 || p.product || len(p.w) < 2 {
+		return nil
+	}
+	return &massMode{w: p.w, delta: make([]float64, len(p.w))}
+}
+
+// shifts returns the extra shift of each log v_k (nil: none this step).
+func (m *massMode) shifts(lambda, omega float64) []float64 {
+	if m == nil {
+		return nil
+	}
+	var mean float64
+	for k, d := range m.delta {
+		mean += m.w[k] * d
+	}
+	rel := make([]float64, len(m.delta))
+	for k, d := range m.delta {
+		rel[k] = d - mean
+	}
+	prev := m.prev
+	m.prev = rel
+	rate := 1 - omega*(1-lambda*lambda)
+	big := 0.0
+	for _, r := range rel {
+		big = math.Max(big, math.Abs(r))
+	}
+	m.dist = big * rate / (1 - rate)
+	if prev == nil || !(rate < 1) || big < 1e-14 {
+		return nil
+	}
+	for k, r := range rel {
+		// Only inputs that take part in the mode need to agree with it.
+		if math.Abs(r) < 1e-3*big {
+			continue
+		}
+		if q := r / prev[k]; !(math.Abs(q-rate) <= 0.02*(1-rate)+1e-3) {
+			return nil
+		}
+	}
+	m.prev = nil // observe afresh after a jump
+	for k := range rel {
+		rel[k] *= rate / (1 - rate)
+	}
+	return rel
+}
+
+func shift(x []float64, t float64) {
+	for i := range x {
+		x[i] += t
+	}
+}
+
 // violation accumulates the first-marginal violation sum_i |m_i - t_i| with
 // Kahan summation: it is a small difference of unit masses.
 type violation struct{ s, c float64 }
@@ -576,15 +683,10 @@ func (v *violation) add(m, t float64) {
 	v.s = s
 }
 
-// value returns the violation; unbalanced, the mass mode contracts by about
-// lambda per iteration, so the violation understates the distance to the
-// fixed point by 1/(1 - lambda).
-func (v *violation) value(lambda float64) float64 {
-	if lambda != 1 {
-		return v.s / (1 - lambda)
-	}
-	return v.s
-}
+// value returns the violation relative to the input's mass (unbalanced
+// inputs carry their own masses; the slow mass mode is measured apart, see
+// massMode).
+func (v *violation) value(mass float64) float64 { return v.s / mass }
 
 // output returns b (given as log b) normalised to unit mass as a field on the
 // full grid, and records b's own mass (the unbalanced barycenter's mass) in

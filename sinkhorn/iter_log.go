@@ -13,14 +13,16 @@ import (
 type logIter struct {
 	p              *problem
 	lv             *level
-	eps            float64
+	eps, lam       float64 // epsilon and the KL exponent rho / (rho + eps)
 	k              *logKernel
 	F, G, LKv, LKu [][]float64
 	lb, ld, lkd    []float64
 	tmp            [][]float64
 	scr            []*lseScratch
 	abs            []*absKernel // absorbed instances: K v_k, then K u_k, then K d; nil when over budget
-	l              [][]float64  // per chunk: log K u_k at one pixel
+	mode           *massMode    // unbalanced barycenters only
+	bw             []float64
+	l              [][]float64 // per chunk: log K u_k at one pixel
 	resid          []float64
 	dres           float64
 }
@@ -30,7 +32,7 @@ const chunk = 4096
 
 func newLogIter(p *problem, lv *level, eps float64, pot *potentials) *logIter {
 	K := len(lv.a)
-	st := &logIter{p: p, lv: lv, eps: eps, k: newLogKernel(lv.rows, lv.cols, lv.dx, lv.dy, eps)}
+	st := &logIter{p: p, lv: lv, eps: eps, lam: p.lambdaAt(eps), k: newLogKernel(lv.rows, lv.cols, lv.dx, lv.dy, eps)}
 	alloc := func() []float64 { return make([]float64, lv.n) }
 	for k := range K {
 		st.F = append(st.F, alloc())
@@ -63,6 +65,9 @@ func newLogIter(p *problem, lv *level, eps float64, pot *potentials) *logIter {
 		}
 	}
 	st.resid = make([]float64, K)
+	if st.mode = newMassMode(p); st.mode != nil {
+		st.bw = alloc()
+	}
 	if n := 2*K + 1; float64(n)*absorbBytes(lv, eps) <= absorbBudget {
 		for range n {
 			st.abs = append(st.abs, newAbsKernel(st.k))
@@ -130,7 +135,7 @@ func (st *logIter) state() *potentials {
 func (st *logIter) step(omega float64) float64 {
 	p, lv := st.p, st.lv
 	K := len(lv.a)
-	lam, e := p.lambda, p.lambda
+	lam, e := st.lam, st.lam
 	if p.product {
 		// Reference a (x) b: the marginals enter unrelaxed.
 		e = 1
@@ -160,17 +165,20 @@ func (st *logIter) step(omega float64) float64 {
 			if st.ld != nil {
 				ld = st.ld[i]
 			}
-			st.lb[i] = p.logMarginal(lv, i, l, ld)
+			st.lb[i] = p.logMarginal(lv, i, l, ld, st.lam)
 		}
 	})
-	grid.Parallel(K+1, p.workers, func(k int) {
-		if k == K {
-			if st.ld != nil {
-				st.debias()
-			}
-			return
+	var bw []float64 // b / max b, weights of the mass mode
+	if st.mode != nil {
+		bw = st.bw
+		m := slices.Max(st.lb)
+		for i, x := range st.lb {
+			bw[i] = math.Exp(x - m)
 		}
+	}
+	grid.Parallel(K, p.workers, func(k int) {
 		G, lku := st.G[k], st.LKu[k]
+		var d, ws float64
 		for i := range G {
 			t := e*st.lb[i] - lam*lku[i]
 			if st.lb[i] == ninf || lku[i] == ninf {
@@ -178,7 +186,31 @@ func (st *logIter) step(omega float64) float64 {
 			} else if omega != 1 && G[i] != ninf {
 				t = (1-omega)*G[i] + omega*t
 			}
+			if bw != nil && t != ninf && G[i] != ninf {
+				d += bw[i] * (t - G[i])
+				ws += bw[i]
+			}
 			G[i] = t
+		}
+		if bw != nil {
+			st.mode.delta[k] = d / ws
+		}
+	})
+	shifts := st.mode.shifts(lam, omega)
+	grid.Parallel(K+1, p.workers, func(k int) {
+		if k == K {
+			if st.ld != nil {
+				st.debias()
+			}
+			return
+		}
+		G := st.G[k]
+		if shifts != nil {
+			// Move log v_k along the mode, and log u_k as its update would
+			// follow (u = (a / K v)^lambda), so that the residual is measured
+			// at a consistent state.
+			shift(G, shifts[k])
+			shift(st.F[k], -lam*shifts[k])
 		}
 		lkv := st.LKv[k]
 		st.conv(k, lkv, G, k)
@@ -194,9 +226,13 @@ func (st *logIter) step(omega float64) float64 {
 			}
 			v.add(m, a)
 		}
-		st.resid[k] = v.value(lam)
+		st.resid[k] = v.value(lv.mass[k])
 	})
-	return slices.Max(st.resid)
+	r := slices.Max(st.resid)
+	if st.mode != nil {
+		r += st.mode.dist
+	}
+	return r
 }
 
 // debias updates log d and records |d K d - b|_1 before the update.

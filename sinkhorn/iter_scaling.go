@@ -28,12 +28,13 @@ const initialCutoff = 1e-80
 type scalingIter struct {
 	p            *problem
 	lv           *level
-	eps          float64
+	eps, lam     float64 // epsilon and the KL exponent rho / (rho + eps)
 	k            *Kernel
 	u, v, kv, ku [][]float64
 	b, d, kd     []float64
 	tmp          [][]float64 // one per task
 	l            [][]float64 // per chunk: log K u_k at one pixel
+	mode         *massMode   // unbalanced barycenters only
 	resid        []float64
 	full         *Kernel     // untruncated, for verify (built at the first check)
 	fullBuf      [][]float64 // scratch for verify
@@ -49,7 +50,7 @@ func newScalingIter(p *problem, lv *level, eps float64, pot *potentials) *scalin
 		return nil // the a (x) b reference is implemented in the log domain only
 	}
 	K := len(lv.a)
-	st := &scalingIter{p: p, lv: lv, eps: eps, k: NewKernel(lv.rows, lv.cols, lv.dx, lv.dy, eps, initialCutoff)}
+	st := &scalingIter{p: p, lv: lv, eps: eps, lam: p.lambdaAt(eps), k: NewKernel(lv.rows, lv.cols, lv.dx, lv.dy, eps, initialCutoff)}
 	alloc := func() []float64 { return make([]float64, lv.n) }
 	expOf := func(x []float64) []float64 {
 		out := alloc()
@@ -94,6 +95,7 @@ func newScalingIter(p *problem, lv *level, eps float64, pot *potentials) *scalin
 	}
 	st.resid = make([]float64, K)
 	st.bad = make([]string, K)
+	st.mode = newMassMode(p)
 	grid.Parallel(K, p.workers, func(k int) { st.k.Apply(st.kv[k], st.v[k], st.tmp[k]) })
 	return st
 }
@@ -148,7 +150,7 @@ const maxStep = 2.0
 func (st *scalingIter) step(omega float64) float64 {
 	p, lv := st.p, st.lv
 	K := len(lv.a)
-	lam := p.lambda
+	lam := st.lam
 	grid.Parallel(K, p.workers, func(k int) {
 		u, a, kv := st.u[k], lv.a[k], st.kv[k]
 		for i := range u {
@@ -180,17 +182,16 @@ func (st *scalingIter) step(omega float64) float64 {
 			if st.d != nil {
 				ld = math.Log(st.d[i])
 			}
-			st.b[i] = math.Exp(p.logMarginal(lv, i, l, ld))
+			st.b[i] = math.Exp(p.logMarginal(lv, i, l, ld, st.lam))
 		}
 	})
-	grid.Parallel(K+1, p.workers, func(k int) {
-		if k == K {
-			if st.d != nil {
-				st.debias()
-			}
-			return
-		}
+	bmax := 0.0 // b / bmax weighs the mass mode
+	if st.mode != nil {
+		bmax = slices.Max(st.b)
+	}
+	grid.Parallel(K, p.workers, func(k int) {
 		v, ku := st.v[k], st.ku[k]
+		var d, ws float64
 		for i := range v {
 			t := 0.0
 			if ku[i] > 0 {
@@ -199,7 +200,36 @@ func (st *scalingIter) step(omega float64) float64 {
 					t = math.Pow(t, lam)
 				}
 			}
-			v[i] = relax(v[i], t, omega)
+			t = relax(v[i], t, omega)
+			if bmax > 0 && t > 0 && v[i] > 0 {
+				w := st.b[i] / bmax
+				d += w * math.Log(t/v[i])
+				ws += w
+			}
+			v[i] = t
+		}
+		if bmax > 0 {
+			st.mode.delta[k] = d / ws
+		}
+	})
+	shifts := st.mode.shifts(lam, omega)
+	grid.Parallel(K+1, p.workers, func(k int) {
+		if k == K {
+			if st.d != nil {
+				st.debias()
+			}
+			return
+		}
+		v := st.v[k]
+		if shifts != nil {
+			// Move v_k along the mode, and u_k as its update would follow
+			// (u = (a / K v)^lambda), so that the residual is measured at a
+			// consistent state.
+			ev, eu := math.Exp(shifts[k]), math.Exp(-lam*shifts[k])
+			for i := range v {
+				v[i] *= ev
+				st.u[k][i] *= eu
+			}
 		}
 		kv := st.kv[k]
 		st.k.Apply(kv, v, st.tmp[k])
@@ -211,9 +241,13 @@ func (st *scalingIter) step(omega float64) float64 {
 			}
 			vi.add(st.u[k][i]*kv[i], a)
 		}
-		st.resid[k] = vi.value(lam)
+		st.resid[k] = vi.value(lv.mass[k])
 	})
-	return slices.Max(st.resid)
+	r := slices.Max(st.resid)
+	if st.mode != nil {
+		r += st.mode.dist
+	}
+	return r
 }
 
 // debias: d = sqrt(d b / K d), recording |d K d - b|_1 before the update.
@@ -295,7 +329,7 @@ func (st *scalingIter) verify(r, tol float64) (float64, bool) {
 		for i, x := range buf {
 			e2 += st.v[k][i] * math.Abs(x-st.ku[k][i])
 		}
-		e[2*k], e[2*k+1] = e2, rv.value(st.p.lambda)
+		e[2*k], e[2*k+1] = e2, rv.value(lv.mass[k])
 	})
 	var trunc, resid float64
 	for k := range K {

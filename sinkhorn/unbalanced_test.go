@@ -187,3 +187,63 @@ func TestUnbalancedDivergence(t *testing.T) {
 		t.Errorf("rho 500: %g, balanced %g", big, bal)
 	}
 }
+
+// A penalty of 10^6 epsilon is the setting a user picks to mean "nearly
+// balanced": it must converge in about as many iterations as the balanced
+// problem (at most twice) and reproduce its result to L1 1e-4. As rho grows
+// the KL-relaxed barycenter tends to the balanced one (Chizat, Peyre,
+// Schmitzer, Vialard 2018); the plain iteration's relative-mass mode
+// contracts only by lambda^2 per iteration, which the translation-invariant
+// updates remove (Sejourne, Vialard, Peyre, AISTATS 2022).
+func TestUnbalancedLargePenaltyIsBalanced(t *testing.T) {
+	f1, _ := grid.Normalize(gaussField(40, 40, 12, 14, 6))
+	f2, _ := grid.Normalize(gaussField(40, 40, 26, 24, 9))
+	fs := []*grid.Field{f1, f2} // equal masses
+	for _, m := range []Method{MethodAuto, MethodLog} {
+		bal, err := Barycenter(fs, Settings{Epsilon: 2, Method: m})
+		if err != nil || bal.Status != Converged {
+			t.Fatal(err, bal.Message)
+		}
+		unb, err := Barycenter(fs, Settings{Epsilon: 2, Method: m, Unbalanced: 2e6, MaxIter: 2 * bal.Iterations})
+		if err != nil {
+			t.Fatal(err)
+		}
+		var l1 float64
+		for i := range unb.Barycenter.Data {
+			l1 += math.Abs(unb.Barycenter.Data[i]/unb.Mass - bal.Barycenter.Data[i])
+		}
+		t.Logf("%v: balanced %d iterations; rho 1e6 eps: %v after %d, L1 %.2g, mass %.6g", m, bal.Iterations, unb.Status, unb.Iterations, l1, unb.Mass/unb.InputMasses[0])
+		if unb.Status != Converged || l1 > 1e-4 {
+			t.Errorf("%v: rho = 1e6 eps: %v after %d iterations (balanced %d), L1 to balanced %g", m, unb.Status, unb.Iterations, bal.Iterations, l1)
+		}
+	}
+}
+
+// The unbalanced stopping rule (violation plus the mass mode's remaining
+// distance) does not stop early: tolerances 1e-6 and 1e-8 give the same
+// barycenter, mass included, for penalties from 10 to 10^6 epsilon and
+// unequal input masses. (At 10^6 epsilon the mode's distance, measured as
+// its step over 1 - lambda^2 = 2e-6, has a floor of a few 1e-9 from
+// rounding: 1e-10 is out of reach there, and the status says so.)
+func TestUnbalancedToleranceIndependent(t *testing.T) {
+	fs := []*grid.Field{gaussField(36, 36, 10, 12, 5), grid.Scale(gaussField(36, 36, 24, 22, 8), 0.3)}
+	for _, rho := range []float64{20, 2000, 2e6} {
+		var out [2]*Result
+		for i, tol := range []float64{1e-6, 1e-8} {
+			r, err := Barycenter(fs, Settings{Epsilon: 2, Unbalanced: rho, Tol: tol, MaxIter: 100000})
+			if err != nil || r.Status != Converged {
+				t.Fatalf("rho %g tol %g: %v %v", rho, tol, err, r.Message)
+			}
+			out[i] = r
+		}
+		var l1 float64
+		for i, x := range out[0].Barycenter.Data {
+			l1 += math.Abs(x - out[1].Barycenter.Data[i])
+		}
+		l1 /= out[1].Mass
+		t.Logf("rho %g: %d and %d iterations, relative L1 %.2g, masses %.8g and %.8g", rho, out[0].Iterations, out[1].Iterations, l1, out[0].Mass, out[1].Mass)
+		if l1 > 1e-4 {
+			t.Errorf("rho %g: relative L1 %g between tolerances 1e-6 and 1e-8", rho, l1)
+		}
+	}
+}
