@@ -20,6 +20,10 @@ type Gaussian struct {
 // matrix of the right size.
 var ErrMatrix = errors.New("gaussfit: bad covariance")
 
+// ErrNumerical reports a solve that lost its numbers (a failed eigensolve
+// or a non-finite iterate).
+var ErrNumerical = errors.New("gaussfit: numerical failure")
+
 // CheckCov verifies that c is d x d, symmetric and positive definite.
 func CheckCov(c [][]float64, d int) (*mat.SymDense, error) {
 	if len(c) != d {
@@ -49,13 +53,22 @@ func CheckCov(c [][]float64, d int) (*mat.SymDense, error) {
 
 // sqrtm returns the symmetric square root (and, when inv, the inverse root)
 // by eigendecomposition; eigenvalues below zero from rounding are clipped.
+// If the eigensolver fails (non-finite input) every entry is NaN, which the
+// callers' results then carry and Barycenter reports as an error.
 func sqrtm(a mat.Symmetric, inv bool) *mat.SymDense {
 	if a.SymmetricDim() == 2 {
 		return sqrt2(a, inv)
 	}
 	var es mat.EigenSym
 	if !es.Factorize(a, true) {
-		panic("gaussfit: eigendecomposition failed")
+		n := a.SymmetricDim()
+		out := mat.NewSymDense(n, nil)
+		for i := 0; i < n; i++ {
+			for j := i; j < n; j++ {
+				out.SetSym(i, j, math.NaN())
+			}
+		}
+		return out
 	}
 	vals := es.Values(nil)
 	var vecs mat.Dense
@@ -117,7 +130,7 @@ func symmetrize(m mat.Matrix) *mat.SymDense {
 
 // Map returns the matrix T of the optimal map x -> m2 + T (x - m1) from
 // N(m1, S1) to N(m2, S2): T = S1^{-1/2} (S1^{1/2} S2 S1^{1/2})^{1/2} S1^{-1/2}.
-func Map(s1, s2 mat.Symmetric) *mat.SymDense {
+func OptimalMap(s1, s2 mat.Symmetric) *mat.SymDense {
 	r := sqrtm(s1, false)
 	ri := sqrtm(s1, true)
 	var m, t mat.Dense
@@ -157,7 +170,7 @@ func Geodesic(a, b Gaussian, t float64) Gaussian {
 	for i := range m {
 		m[i] = (1-t)*a.Mean[i] + t*b.Mean[i]
 	}
-	return Gaussian{Mean: m, Cov: moveAlong(a.Cov, Map(a.Cov, b.Cov), t)}
+	return Gaussian{Mean: m, Cov: moveAlong(a.Cov, OptimalMap(a.Cov, b.Cov), t)}
 }
 
 // moveAlong returns M S M with M = (1 - t) I + t T: the covariance after a
@@ -297,7 +310,7 @@ func Barycenter(gs []Gaussian, s Settings) (*Result, error) {
 	grad := func(S *mat.SymDense, idx []int, wt []float64) *mat.Dense {
 		G := mat.NewDense(d, d, nil)
 		for n, k := range idx {
-			T := Map(S, gs[k].Cov)
+			T := OptimalMap(S, gs[k].Cov)
 			var t mat.Dense
 			t.Scale(wt[n], T)
 			G.Add(G, &t)
@@ -377,6 +390,13 @@ func Barycenter(gs []Gaussian, s Settings) (*Result, error) {
 	}
 	if !res.Converged || s.Solver == Stochastic {
 		res.GradNorm = gnorm(S)
+	}
+	for i := 0; i < d; i++ {
+		for j := 0; j < d; j++ {
+			if x := S.At(i, j); math.IsNaN(x) || math.IsInf(x, 0) {
+				return nil, fmt.Errorf("%w: the covariance became non-finite (the eigensolver failed)", ErrNumerical)
+			}
+		}
 	}
 	res.Barycenter = Gaussian{Mean: mean, Cov: S}
 	res.Elapsed = time.Since(start)

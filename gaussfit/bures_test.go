@@ -2,6 +2,7 @@ package gaussfit
 
 import (
 	"image"
+	"errors"
 	"math"
 	"math/rand/v2"
 	"testing"
@@ -241,5 +242,16 @@ func TestOverlayDrawsEllipses(t *testing.T) {
 	}
 	if c := im.NRGBAAt(33, 33); c.R != 0 {
 		t.Errorf("centre painted: %v", c)
+	}
+}
+
+// A covariance the eigensolver cannot take (a NaN entry, built around
+// CheckCov) is an error from Barycenter, not a panic.
+func TestBarycenterNumericalFailureIsAnError(t *testing.T) {
+	bad := mat.NewSymDense(3, []float64{1, 0, 0, 0, math.NaN(), 0, 0, 0, 1})
+	good := mat.NewSymDense(3, []float64{2, 0, 0, 0, 1, 0, 0, 0, 1})
+	_, err := Barycenter([]Gaussian{{Mean: []float64{0, 0, 0}, Cov: bad}, {Mean: []float64{1, 0, 0}, Cov: good}}, Settings{})
+	if !errors.Is(err, ErrNumerical) {
+		t.Fatalf("got %v, want ErrNumerical", err)
 	}
 }

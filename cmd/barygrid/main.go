@@ -4,6 +4,7 @@
 package main
 
 import (
+	"barygrid/io/fieldfile"
 	"errors"
 	"fmt"
 	"os"
@@ -43,6 +44,9 @@ func run(args []string) (status int) {
 	}
 	msg := strings.TrimSpace(err.Error())
 	msg = strings.ReplaceAll(msg, "\n", "; ")
+	if errors.Is(err, fieldfile.ErrExists) {
+		msg += " (use --force to replace it)"
+	}
 	fmt.Fprintf(os.Stderr, "barygrid: %s\n", msg)
 	var ue usageError
 	if errors.As(err, &ue) {

@@ -212,7 +212,7 @@ func Save(path string, f *grid.Field, s SaveSettings) (string, error) {
 }
 
 // ErrExists is returned when an output exists and Force is not set.
-var ErrExists = errors.New("file exists (use --force to replace it)")
+var ErrExists = errors.New("file exists and replacing it was not asked for")
 
 // WriteAtomic writes through a temporary file in the target's folder and
 // renames it into place, so a crash or an error never leaves a partial file
