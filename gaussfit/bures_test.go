@@ -1,8 +1,8 @@
 package gaussfit
 
 import (
-	"image"
 	"errors"
+	"image"
 	"math"
 	"math/rand/v2"
 	"testing"
