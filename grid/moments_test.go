@@ -142,13 +142,3 @@ func TestResampleKeepsMoments(t *testing.T) {
 		}
 	}
 }
-
-func TestParallelDeterministic(t *testing.T) {
-	out := make([]int, 100)
-	Parallel(100, 7, func(i int) { out[i] = i * i })
-	for i, v := range out {
-		if v != i*i {
-			t.Fatalf("slot %d = %d", i, v)
-		}
-	}
-}

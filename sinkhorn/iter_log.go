@@ -1,10 +1,10 @@
 package sinkhorn
 
 import (
+	"barygrid/internal/parallel"
 	"math"
 	"slices"
 
-	"barygrid/grid"
 )
 
 // logIter is the log-domain representation: F_k = log u_k, G_k = log v_k,
@@ -73,7 +73,7 @@ func newLogIter(p *problem, lv *level, eps float64, pot *potentials) *logIter {
 			st.abs = append(st.abs, newAbsKernel(st.k))
 		}
 	}
-	grid.Parallel(K, p.workers, func(k int) { st.conv(k, st.LKv[k], st.G[k], k) })
+	parallel.For(K, p.workers, func(k int) { st.conv(k, st.LKv[k], st.G[k], k) })
 	return st
 }
 
@@ -141,7 +141,7 @@ func (st *logIter) step(omega float64) float64 {
 		e = 1
 	}
 	ninf := math.Inf(-1)
-	grid.Parallel(K, p.workers, func(k int) {
+	parallel.For(K, p.workers, func(k int) {
 		F, la, lkv := st.F[k], lv.la[k], st.LKv[k]
 		for i := range F {
 			t := e*la[i] - lam*lkv[i]
@@ -155,7 +155,7 @@ func (st *logIter) step(omega float64) float64 {
 		st.conv(K+k, st.LKu[k], F, k)
 	})
 	nc := (lv.n + chunk - 1) / chunk
-	grid.Parallel(nc, p.workers, func(c int) {
+	parallel.For(nc, p.workers, func(c int) {
 		l := st.l[c]
 		for i := c * chunk; i < min((c+1)*chunk, lv.n); i++ {
 			for k := range K {
@@ -176,7 +176,7 @@ func (st *logIter) step(omega float64) float64 {
 			bw[i] = math.Exp(x - m)
 		}
 	}
-	grid.Parallel(K, p.workers, func(k int) {
+	parallel.For(K, p.workers, func(k int) {
 		G, lku := st.G[k], st.LKu[k]
 		var d, ws float64
 		for i := range G {
@@ -197,7 +197,7 @@ func (st *logIter) step(omega float64) float64 {
 		}
 	})
 	shifts := st.mode.shifts(lam, omega)
-	grid.Parallel(K+1, p.workers, func(k int) {
+	parallel.For(K+1, p.workers, func(k int) {
 		if k == K {
 			if st.ld != nil {
 				st.debias()

@@ -1,11 +1,11 @@
 package sinkhorn
 
 import (
+	"barygrid/internal/parallel"
 	"fmt"
 	"math"
 	"slices"
 
-	"barygrid/grid"
 )
 
 // Scalings outside [tiny, huge] (or a zero K v where an input has mass) mean
@@ -96,7 +96,7 @@ func newScalingIter(p *problem, lv *level, eps float64, pot *potentials) *scalin
 	st.resid = make([]float64, K)
 	st.bad = make([]string, K)
 	st.mode = newMassMode(p)
-	grid.Parallel(K, p.workers, func(k int) { st.k.Apply(st.kv[k], st.v[k], st.tmp[k]) })
+	parallel.For(K, p.workers, func(k int) { st.k.Apply(st.kv[k], st.v[k], st.tmp[k]) })
 	return st
 }
 
@@ -151,7 +151,7 @@ func (st *scalingIter) step(omega float64) float64 {
 	p, lv := st.p, st.lv
 	K := len(lv.a)
 	lam := st.lam
-	grid.Parallel(K, p.workers, func(k int) {
+	parallel.For(K, p.workers, func(k int) {
 		u, a, kv := st.u[k], lv.a[k], st.kv[k]
 		for i := range u {
 			t := 0.0
@@ -168,7 +168,7 @@ func (st *scalingIter) step(omega float64) float64 {
 	// b pixel by pixel in a fixed order of k, so that the result does not
 	// depend on the number of workers.
 	nc := (lv.n + chunk - 1) / chunk
-	grid.Parallel(nc, p.workers, func(c int) {
+	parallel.For(nc, p.workers, func(c int) {
 		l := st.l[c]
 		for i := c * chunk; i < min((c+1)*chunk, lv.n); i++ {
 			if lv.target != nil {
@@ -189,7 +189,7 @@ func (st *scalingIter) step(omega float64) float64 {
 	if st.mode != nil {
 		bmax = slices.Max(st.b)
 	}
-	grid.Parallel(K, p.workers, func(k int) {
+	parallel.For(K, p.workers, func(k int) {
 		v, ku := st.v[k], st.ku[k]
 		var d, ws float64
 		for i := range v {
@@ -213,7 +213,7 @@ func (st *scalingIter) step(omega float64) float64 {
 		}
 	})
 	shifts := st.mode.shifts(lam, omega)
-	grid.Parallel(K+1, p.workers, func(k int) {
+	parallel.For(K+1, p.workers, func(k int) {
 		if k == K {
 			if st.d != nil {
 				st.debias()
@@ -273,7 +273,7 @@ func (st *scalingIter) health(strict bool) string {
 	if !strict {
 		lo, hi = 0, math.MaxFloat64
 	}
-	grid.Parallel(len(lv.a), st.p.workers, func(k int) {
+	parallel.For(len(lv.a), st.p.workers, func(k int) {
 		st.bad[k] = ""
 		u, v, kv := st.u[k], st.v[k], st.kv[k]
 		for i, a := range lv.a[k] {
@@ -317,7 +317,7 @@ func (st *scalingIter) verify(r, tol float64) (float64, bool) {
 		}
 	}
 	full, e := st.full, st.checks
-	grid.Parallel(K, st.p.workers, func(k int) {
+	parallel.For(K, st.p.workers, func(k int) {
 		buf := st.fullBuf[k]
 		full.Apply(buf, st.v[k], st.tmp[k])
 		var rv violation
@@ -353,5 +353,5 @@ func (st *scalingIter) widen() {
 		c = 0
 	}
 	st.k = NewKernel(lv.rows, lv.cols, lv.dx, lv.dy, st.eps, c)
-	grid.Parallel(len(lv.a), st.p.workers, func(k int) { st.k.Apply(st.kv[k], st.v[k], st.tmp[k]) })
+	parallel.For(len(lv.a), st.p.workers, func(k int) { st.k.Apply(st.kv[k], st.v[k], st.tmp[k]) })
 }

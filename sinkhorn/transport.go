@@ -1,6 +1,7 @@
 package sinkhorn
 
 import (
+	"barygrid/internal/parallel"
 	"fmt"
 	"math"
 	"time"
@@ -114,7 +115,7 @@ func Divergence(a, b *grid.Field, s Settings) (float64, []*TransportResult, erro
 	errs := make([]error, 3)
 	inner := s
 	inner.Workers = 1
-	grid.Parallel(3, s.Workers, func(i int) {
+	parallel.For(3, s.Workers, func(i int) {
 		out[i], errs[i] = Transport(pairs[i][0], pairs[i][1], inner)
 	})
 	for _, e := range errs {
@@ -149,7 +150,7 @@ func UnbalancedDivergence(a, b *grid.Field, rho float64, s Settings) (float64, [
 	pairs := [][2][]float64{{A, B}, {A, A}, {B, B}}
 	out := make([]*TransportResult, 3)
 	errs := make([]error, 3)
-	grid.Parallel(3, s.Workers, func(i int) {
+	parallel.For(3, s.Workers, func(i int) {
 		out[i], errs[i] = transport(p, pairs[i][0], pairs[i][1], rho)
 	})
 	for _, e := range errs {

@@ -1,6 +1,7 @@
 package main
 
 import (
+	"barygrid/internal/parallel"
 	"crypto/sha256"
 	"encoding/csv"
 	"encoding/hex"
@@ -353,7 +354,7 @@ func runBatch(c *cli.Context) error {
 			bar.RenderBlank()
 		}
 	}
-	grid.Parallel(len(groups), jobs, func(i int) {
+	parallel.For(len(groups), jobs, func(i int) {
 		g := groups[i]
 		ss := s
 		ss.Workers = workers

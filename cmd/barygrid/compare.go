@@ -1,6 +1,7 @@
 package main
 
 import (
+	"barygrid/internal/parallel"
 	"encoding/csv"
 	"encoding/json"
 	"fmt"
@@ -282,7 +283,7 @@ func distanceCommand() *cli.Command {
 				}
 			}
 			errs := make([]error, len(pairs))
-			grid.Parallel(len(pairs), s.Workers, func(k int) {
+			parallel.For(len(pairs), s.Workers, func(k int) {
 				i, j := pairs[k][0], pairs[k][1]
 				d, _, err := dist(fs[i], fs[j], 1)
 				if err != nil {
@@ -335,7 +336,7 @@ func rankInputs(files []string, fs []*grid.Field, bary *grid.Field, s sinkhorn.S
 	errs := make([]error, len(fs))
 	inner := s
 	inner.Workers, inner.Progress = 1, nil
-	grid.Parallel(len(fs), s.Workers, func(i int) {
+	parallel.For(len(fs), s.Workers, func(i int) {
 		d, _, err := sinkhorn.Divergence(fs[i], bary, inner)
 		out[i], errs[i] = rankEntry{File: files[i], Divergence: d}, err
 	})

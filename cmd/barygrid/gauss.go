@@ -1,6 +1,7 @@
 package main
 
 import (
+	"barygrid/internal/parallel"
 	"encoding/json"
 	"fmt"
 	"image/png"
@@ -285,7 +286,7 @@ func loadFieldsParallel(c *cli.Context, files []string) ([]*grid.Field, error) {
 	}
 	fs := make([]*grid.Field, len(files))
 	errs := make([]error, len(files))
-	grid.Parallel(len(files), 0, func(i int) {
+	parallel.For(len(files), 0, func(i int) {
 		fs[i], errs[i] = fieldfile.Load(files[i], s)
 	})
 	for _, e := range errs {

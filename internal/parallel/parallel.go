@@ -1,4 +1,6 @@
-package grid
+// Package parallel is barygrid's one helper for running independent
+// tasks on several goroutines with results that do not depend on how many.
+package parallel
 
 import (
 	"fmt"
@@ -6,7 +8,7 @@ import (
 	"sync"
 )
 
-// Parallel calls fn(i) for i in [0, n) on up to workers goroutines (all CPUs
+// For calls fn(i) for i in [0, n) on up to workers goroutines (all CPUs
 // when workers <= 0). Work is handed out by index, so results written to
 // per-index slots do not depend on the number of workers.
 //
@@ -14,7 +16,7 @@ import (
 // goroutine once the workers have returned, so that a recover there (the
 // command line's) sees it; a panic in a goroutine of its own would end the
 // process with a stack trace.
-func Parallel(n, workers int, fn func(i int)) {
+func For(n, workers int, fn func(i int)) {
 	if workers <= 0 {
 		workers = runtime.GOMAXPROCS(0)
 	}

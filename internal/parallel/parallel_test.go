@@ -1,4 +1,4 @@
-package grid
+package parallel
 
 import (
 	"strings"
@@ -17,7 +17,7 @@ func TestParallelCarriesPanics(t *testing.T) {
 					t.Errorf("workers %d: recovered %v", workers, r)
 				}
 			}()
-			Parallel(8, workers, func(i int) {
+			For(8, workers, func(i int) {
 				if i == 5 {
 					panic(errorString("boom"))
 				}
@@ -29,3 +29,14 @@ func TestParallelCarriesPanics(t *testing.T) {
 type errorString string
 
 func (e errorString) Error() string { return string(e) }
+
+// Every index is visited once, whatever the number of workers.
+func TestParallelDeterministic(t *testing.T) {
+	out := make([]int, 100)
+	For(100, 7, func(i int) { out[i] = i * i })
+	for i, v := range out {
+		if v != i*i {
+			t.Fatalf("slot %d = %d", i, v)
+		}
+	}
+}
