@@ -153,8 +153,10 @@ type Result struct {
 	// distance of the debiasing field from its fixed point (0 when plain).
 	DebiasResidual float64
 	Elapsed        time.Duration
-	Epsilon        float64
-	Debiased       bool
+	// Epsilon, Tol and MaxIter are the values used (defaults filled in).
+	Epsilon, Tol float64
+	MaxIter      int
+	Debiased     bool
 	// Method is the representation of the last stage.
 	Method Method
 	// Relax is the over-relaxation factor used at the end.
@@ -458,7 +460,7 @@ func Barycenter(fields []*grid.Field, s Settings) (*Result, error) {
 	}
 	res, _ := p.solve()
 	res.Elapsed = time.Since(start)
-	res.Debiased = p.debias
+	res.Debiased, res.Tol, res.MaxIter = p.debias, p.tol, p.maxIter
 	res.InputMasses, res.Dropped = p.masses, p.dropped
 	res.Mass = 1
 	if p.lambda != 1 && res.Barycenter != nil {

@@ -4,7 +4,6 @@ import (
 	"barygrid/internal/parallel"
 	"math"
 	"slices"
-
 )
 
 // logIter is the log-domain representation: F_k = log u_k, G_k = log v_k,

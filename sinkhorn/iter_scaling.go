@@ -5,7 +5,6 @@ import (
 	"fmt"
 	"math"
 	"slices"
-
 )
 
 // Scalings outside [tiny, huge] (or a zero K v where an input has mass) mean

@@ -15,7 +15,9 @@ type TransportResult struct {
 	// potentials f, g (squared physical units); for unit-mass plans this is
 	// the primal value <C, P> + eps KL(P | counting) up to a constant that
 	// cancels in the Sinkhorn divergence.
-	Cost             float64
+	Cost float64
+	// Epsilon and Tol are the values used (defaults filled in).
+	Epsilon, Tol     float64
 	Iterations       int
 	FinestIterations int
 	Residual         float64
@@ -64,7 +66,7 @@ func transport(base *problem, a, b []float64, rho float64) (*TransportResult, er
 		return nil, err
 	}
 	r, last := p.solve()
-	res := &TransportResult{Iterations: r.Iterations, FinestIterations: r.FinestIterations, Residual: r.Residual,
+	res := &TransportResult{Epsilon: p.eps, Tol: p.tol, Iterations: r.Iterations, FinestIterations: r.FinestIterations, Residual: r.Residual,
 		Status: r.Status, Message: r.Message, Method: r.Method, Stages: r.Stages}
 	if r.Status == NumericalFailure {
 		return res, fmt.Errorf("sinkhorn: transport failed: %s", r.Message)

@@ -1,6 +1,7 @@
 package main
 
 import (
+	"barygrid/ensemble"
 	"errors"
 	"fmt"
 	"image/png"
@@ -301,7 +302,10 @@ func writeSheet(path string, force bool, title string, files []string, fs []*gri
 	if err != nil {
 		return err
 	}
-	mean := pixelMean(fs)
+	mean, err := ensemble.PixelMean(fs)
+	if err != nil {
+		return err
+	}
 	if bary == nil {
 		dx, dy := fs[0].PixelSize()
 		bary = gaussfit.Render(gr.Barycenter, fs[0].Rows, fs[0].Cols, dx, dy, 1)

@@ -1,6 +1,7 @@
 package main
 
 import (
+	"barygrid/ensemble"
 	"barygrid/internal/parallel"
 	"crypto/sha256"
 	"encoding/csv"
@@ -499,7 +500,10 @@ func processGroup(g group, job groupJob) summaryRow {
 	gaussTime := time.Since(tGauss).Seconds()
 	dx, dy := fs[0].PixelSize()
 	gfield := gaussfit.Render(gr.Barycenter, fs[0].Rows, fs[0].Cols, dx, dy, 1)
-	mean := pixelMean(fs)
+	mean, err := ensemble.PixelMean(fs)
+	if err != nil {
+		return fail(err)
+	}
 
 	tmp, err := os.MkdirTemp(out, "."+g.Name+".tmp")
 	if err != nil {

@@ -1,7 +1,7 @@
 package main
 
 import (
-	"barygrid/internal/parallel"
+	"barygrid/ensemble"
 	"encoding/csv"
 	"encoding/json"
 	"fmt"
@@ -12,10 +12,8 @@ import (
 	"math"
 	"os"
 	"path/filepath"
-	"sort"
 	"strconv"
 
-	"barygrid/gaussfit"
 	"barygrid/grid"
 	"barygrid/io/fieldfile"
 	"barygrid/io/imagefile"
@@ -66,54 +64,11 @@ func morphCommand() *cli.Command {
 			if err != nil {
 				return err
 			}
-			frames := make([]*grid.Field, n)
-			var ga, gb gaussfit.Gaussian
-			if c.Bool("gauss") {
-				if ga, _, err = gaussfit.Fit(fs[0], gaussfit.FitSettings{}); err != nil {
-					return fmt.Errorf("%s: %w", c.Args().Get(0), err)
-				}
-				if gb, _, err = gaussfit.Fit(fs[1], gaussfit.FitSettings{}); err != nil {
-					return fmt.Errorf("%s: %w", c.Args().Get(1), err)
-				}
+			mr, err := ensemble.Morph(fs[0], fs[1], ensemble.MorphSettings{Frames: n, Gaussian: c.Bool("gauss"), Solver: s})
+			if err != nil {
+				return maskError(c, err)
 			}
-			dx, dy := fs[0].PixelSize()
-			// Frames are weighted barycenters for t from 0 to 1, each
-			// warm-started from the previous frame's scalings, which are
-			// close: the iteration then needs a fraction of the cold count.
-			errs := make([]error, n)
-			inner := s
-			inner.Progress = nil
-			var warm *sinkhorn.WarmStart
-			iters := 0
-			for i := 0; i < n; i++ {
-				t := float64(i) / float64(n-1)
-				if c.Bool("gauss") {
-					frames[i] = gaussfit.Render(gaussfit.Geodesic(ga, gb, t), fs[0].Rows, fs[0].Cols, dx, dy, 1)
-					continue
-				}
-				if (t == 0 || t == 1) && s.Unbalanced == 0 && s.Mask == nil {
-					frames[i], errs[i] = grid.Normalize(fs[int(t)])
-					continue
-				}
-				ss := inner
-				ss.Weights = []float64{1 - t, t}
-				ss.Warm = warm
-				r, err := sinkhorn.Barycenter(fs, ss)
-				if err == nil && r.Status != sinkhorn.Converged {
-					err = fmt.Errorf("frame %d (t = %.3g) did not converge: %s", i, t, r.Message)
-				}
-				if err != nil {
-					errs[i] = maskError(c, err)
-					break
-				}
-				frames[i], warm = r.Barycenter, r.Warm
-				iters += r.Iterations
-			}
-			for _, e := range errs {
-				if e != nil {
-					return e
-				}
-			}
+			frames, iters := mr.Frames, mr.Iterations
 			if dir != "" {
 				if err := os.MkdirAll(dir, 0o755); err != nil {
 					return fmt.Errorf("%s: %v", dir, err)
@@ -213,90 +168,35 @@ func distanceCommand() *cli.Command {
 			if err != nil {
 				return err
 			}
-			dist := func(a, b *grid.Field, workers int) (float64, []int, error) {
-				if c.Bool("gauss") {
-					ga, _, err := gaussfit.Fit(a, gaussfit.FitSettings{})
-					if err != nil {
-						return 0, nil, err
-					}
-					gb, _, err := gaussfit.Fit(b, gaussfit.FitSettings{})
-					if err != nil {
-						return 0, nil, err
-					}
-					return gaussfit.W2Sq(ga, gb), nil, nil
-				}
-				ss := s
-				ss.Workers = workers
-				var (
-					d   float64
-					rs  []*sinkhorn.TransportResult
-					err error
-				)
-				if s.Unbalanced > 0 {
-					d, rs, err = sinkhorn.UnbalancedDivergence(a, b, s.Unbalanced, ss)
-				} else {
-					d, rs, err = sinkhorn.Divergence(a, b, ss)
-				}
-				var its []int
-				for _, r := range rs {
-					if r != nil {
-						its = append(its, r.Iterations)
-						if err == nil && r.Status != sinkhorn.Converged {
-							err = fmt.Errorf("Sinkhorn iteration did not converge (residual %.3g after %d iterations)", r.Residual, r.Iterations)
-						}
-					}
-				}
-				return d, its, err
-			}
-			eps := s.Epsilon
-			if eps == 0 {
-				dx, dy := fs[0].PixelSize()
-				eps = sinkhorn.DefaultEpsilon(fs[0].Rows, fs[0].Cols, dx, dy)
+			ds := ensemble.DistanceSettings{Solver: s}
+			switch {
+			case c.Bool("gauss"):
+				ds.Kind = ensemble.GaussianW2
+			case s.Unbalanced > 0:
+				ds.Kind = ensemble.UnbalancedDivergence
 			}
 			if !matrix {
-				d, its, err := dist(fs[0], fs[1], s.Workers)
+				d, err := ensemble.Between(fs[0], fs[1], ds)
 				if err != nil {
 					return err
 				}
 				if c.Bool("json") {
-					o := distanceJSON{A: files[0], B: files[1], Kind: "sinkhorn-divergence", Divergence: d, Epsilon: eps, Tol: s.Tol, Unit: fs[0].Unit, Iterations: its, Unbalanced: s.Unbalanced}
-					if s.Unbalanced > 0 {
-						o.Kind = "unbalanced-sinkhorn-divergence"
-					}
-					if c.Bool("gauss") {
-						o = distanceJSON{A: files[0], B: files[1], Kind: "gaussian-w2-squared", W2Sq: d, Unit: fs[0].Unit}
+					o := distanceJSON{A: files[0], B: files[1], Kind: d.Kind.String(), Unit: fs[0].Unit}
+					if d.Kind == ensemble.GaussianW2 {
+						o.W2Sq = d.Value
+					} else {
+						o.Divergence, o.Epsilon, o.Tol, o.Iterations, o.Unbalanced = d.Value, d.Epsilon, s.Tol, d.Iterations, s.Unbalanced
 					}
 					return json.NewEncoder(os.Stdout).Encode(o)
 				}
-				fmt.Printf("%.10g\n", d)
+				fmt.Printf("%.10g\n", d.Value)
 				return nil
 			}
+			m, err := ensemble.Matrix(fs, ds)
+			if err != nil {
+				return err
+			}
 			n := len(fs)
-			m := make([][]float64, n)
-			for i := range m {
-				m[i] = make([]float64, n)
-			}
-			var pairs [][2]int
-			for i := 0; i < n; i++ {
-				for j := i + 1; j < n; j++ {
-					pairs = append(pairs, [2]int{i, j})
-				}
-			}
-			errs := make([]error, len(pairs))
-			parallel.For(len(pairs), s.Workers, func(k int) {
-				i, j := pairs[k][0], pairs[k][1]
-				d, _, err := dist(fs[i], fs[j], 1)
-				if err != nil {
-					errs[k] = fmt.Errorf("%s vs %s: %w", files[i], files[j], err)
-				}
-				// Symmetric with zero diagonal by construction.
-				m[i][j], m[j][i] = d, d
-			})
-			for _, e := range errs {
-				if e != nil {
-					return e
-				}
-			}
 			err = fieldfile.WriteAtomic(c.String("out"), c.Bool("force"), func(w io.Writer) error {
 				cw := csv.NewWriter(w)
 				cw.Write(append([]string{"file"}, files...))
@@ -327,53 +227,16 @@ type rankEntry struct {
 	Outlier    bool    `json:"outlier"`
 }
 
-// rankInputs returns each input's Sinkhorn divergence to the barycenter,
-// sorted, with outliers flagged by the rule divergence > median + 3 * MAD /
-// 0.6745 (the scaled median absolute deviation; Hampel 1974, Leys et al.
-// 2013), robust because the outliers themselves barely move the median.
+// rankInputs ranks the inputs by their Sinkhorn divergence to the
+// barycenter, outliers flagged (ensemble.RankInputs).
 func rankInputs(files []string, fs []*grid.Field, bary *grid.Field, s sinkhorn.Settings) ([]rankEntry, error) {
-	out := make([]rankEntry, len(fs))
-	errs := make([]error, len(fs))
-	inner := s
-	inner.Workers, inner.Progress = 1, nil
-	parallel.For(len(fs), s.Workers, func(i int) {
-		d, _, err := sinkhorn.Divergence(fs[i], bary, inner)
-		out[i], errs[i] = rankEntry{File: files[i], Divergence: d}, err
-	})
-	for i, e := range errs {
-		if e != nil {
-			return nil, fmt.Errorf("%s: %w", files[i], e)
-		}
+	rs, err := ensemble.RankInputs(fs, bary, ensemble.DistanceSettings{Solver: s})
+	if err != nil {
+		return nil, err
 	}
-	ds := make([]float64, len(out))
-	for i, e := range out {
-		ds[i] = e.Divergence
+	out := make([]rankEntry, len(rs))
+	for i, r := range rs {
+		out[i] = rankEntry{File: files[r.Index], Divergence: r.Divergence, Score: r.Score, Outlier: r.Outlier}
 	}
-	med := median(ds)
-	dev := make([]float64, len(ds))
-	for i, d := range ds {
-		dev[i] = math.Abs(d - med)
-	}
-	mad := median(dev) / 0.6745
-	for i := range out {
-		if mad > 0 {
-			out[i].Score = (out[i].Divergence - med) / mad
-		}
-		out[i].Outlier = mad > 0 && out[i].Score > 3
-	}
-	sort.SliceStable(out, func(i, j int) bool { return out[i].Divergence > out[j].Divergence })
 	return out, nil
-}
-
-func median(xs []float64) float64 {
-	s := append([]float64(nil), xs...)
-	sort.Float64s(s)
-	n := len(s)
-	if n == 0 {
-		return 0
-	}
-	if n%2 == 1 {
-		return s[n/2]
-	}
-	return (s[n/2-1] + s[n/2]) / 2
 }

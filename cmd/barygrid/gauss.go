@@ -1,6 +1,7 @@
 package main
 
 import (
+	"barygrid/ensemble"
 	"barygrid/internal/parallel"
 	"encoding/json"
 	"fmt"
@@ -222,7 +223,11 @@ func gaussCommand() *cli.Command {
 					return usagef("--overlay needs field inputs (2-D)")
 				}
 				dx, dy := ref.PixelSize()
-				bg, _ := imagefile.Colorize(pixelMean(refs), imagefile.WriteSettings{})
+				mean, err := ensemble.PixelMean(refs)
+				if err != nil {
+					return err
+				}
+				bg, _ := imagefile.Colorize(mean, imagefile.WriteSettings{})
 				zoom := max(1, 512/max(ref.Rows, ref.Cols))
 				im := gaussfit.Overlay(bg, dx, dy, zoom, gs[len(gs)-nfld:], b)
 				if err := fieldfile.WriteAtomic(overlay, c.Bool("force"), func(w io.Writer) error { return png.Encode(w, im) }); err != nil {

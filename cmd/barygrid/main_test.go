@@ -231,13 +231,19 @@ func TestDistanceAndMatrix(t *testing.T) {
 	if err != nil || len(recs) != 4 || recs[0][0] != "file" {
 		t.Fatalf("matrix %v %v", err, recs)
 	}
+	// Gaussian W2^2 of translates is the squared shift (Dowson & Landau
+	// 1982): the CSV carries the values the blobs' positions give (to 1e-3:
+	// the 24 px frame cuts the blobs' tails).
+	pos := [][2]float64{{8, 10}, {14, 12}, {11, 16}}
 	for i := 1; i < 4; i++ {
-		if recs[i][i] != "0" {
-			t.Errorf("diagonal %q", recs[i][i])
+		if recs[i][0] != files[i-1] {
+			t.Errorf("row %d is %q, want %q", i, recs[i][0], files[i-1])
 		}
 		for j := 1; j < 4; j++ {
-			if recs[i][j] != recs[j][i] {
-				t.Errorf("not symmetric at %d,%d", i, j)
+			dx, dy := pos[i-1][0]-pos[j-1][0], pos[i-1][1]-pos[j-1][1]
+			v, err := strconv.ParseFloat(recs[i][j], 64)
+			if want := dx*dx + dy*dy; err != nil || math.Abs(v-want) > 1e-3*math.Max(want, 1) {
+				t.Errorf("entry (%d, %d) = %q, want %g", i, j, recs[i][j], want)
 			}
 		}
 	}

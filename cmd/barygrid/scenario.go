@@ -76,19 +76,3 @@ func storm(n, size int, seed uint64) []*grid.Field {
 	}
 	return out
 }
-
-// pixelMean is the plain average of the normalised fields, the blurry
-// reference the barycenter is compared with.
-func pixelMean(fs []*grid.Field) *grid.Field {
-	m := fs[0].Like()
-	for _, f := range fs {
-		g, err := grid.Normalize(f)
-		if err != nil {
-			continue
-		}
-		for i, v := range g.Data {
-			m.Data[i] += v / float64(len(fs))
-		}
-	}
-	return m
-}
