@@ -1,6 +1,7 @@
 package sinkhorn
 
 import (
+	"cmp"
 	"fmt"
 	"math"
 	"slices"
@@ -156,8 +157,30 @@ func (p *problem) schedule(levels []*level) []stagePlan {
 		}
 		plan = append(plan, stagePlan{l, eps})
 	}
-	slices.Reverse(plan)
-	return plan
+	// At the target epsilon, also visit every level finer than the last
+	// coarse stage's that resolves it, so that the full grid starts from a
+	// neighbour one level coarser rather than from an 8 x coarser grid
+	// (measured at 256^2, epsilon 16: the jump from 32^2 cost 217 full-grid
+	// iterations).
+	if len(plan) > 1 {
+		for l := plan[1].level - 1; l > 0; l-- {
+			h := math.Max(levels[l].dx, levels[l].dy)
+			if h*h <= levelRatio*p.eps {
+				plan = append(plan, stagePlan{l, p.eps})
+			}
+		}
+	}
+	// Built from the target outward; the solve runs it coarse first. The
+	// target stage on the full grid (plan[0]) must come last.
+	head := plan[0]
+	plan = plan[1:]
+	slices.SortStableFunc(plan, func(a, b stagePlan) int {
+		if a.eps != b.eps {
+			return cmp.Compare(b.eps, a.eps)
+		}
+		return cmp.Compare(b.level, a.level)
+	})
+	return append(plan, head)
 }
 
 // levelRatio: a level of pixel h runs the stages with epsilon >= h^2 /
