@@ -2,7 +2,6 @@ package gaussfit
 
 import (
 	"errors"
-	"image"
 	"math"
 	"math/rand/v2"
 	"testing"
@@ -226,22 +225,6 @@ func TestBadMatrices(t *testing.T) {
 		if _, err := CheckCov(c, 2); err == nil {
 			t.Errorf("%v accepted", c)
 		}
-	}
-}
-
-func TestOverlayDrawsEllipses(t *testing.T) {
-	bg := image.NewGray(image.Rect(0, 0, 32, 32))
-	g := Gaussian{Mean: []float64{16, 16}, Cov: sym(25, 0, 9)}
-	im := Overlay(bg, 1, 1, 2, []Gaussian{g}, g)
-	if im.Bounds().Dx() != 64 {
-		t.Fatalf("size %v", im.Bounds())
-	}
-	// The major semi-axis is 5 px along x: (16+5+0.5)*2 = 43 on the row of the centre.
-	if c := im.NRGBAAt(43, 33); c.R != 255 {
-		t.Errorf("no ellipse at the end of the major axis: %v", c)
-	}
-	if c := im.NRGBAAt(33, 33); c.R != 0 {
-		t.Errorf("centre painted: %v", c)
 	}
 }
 

@@ -253,7 +253,7 @@ func barycenterCommand() *cli.Command {
 				return fmt.Errorf("barycenter failed: %s", r.Message)
 			}
 			if out != "" {
-				sc, err := fieldfile.Save(out, r.Barycenter, saveSettings(c))
+				sc, err := saveField(c, out, r.Barycenter)
 				if err != nil {
 					return err
 				}

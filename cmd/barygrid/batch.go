@@ -23,7 +23,7 @@ import (
 	"barygrid/grid"
 	"barygrid/io/fieldfile"
 	"barygrid/io/imagefile"
-	"barygrid/io/sheet"
+	"barygrid/render"
 	"barygrid/sinkhorn"
 
 	"github.com/schollz/progressbar/v3"
@@ -514,16 +514,15 @@ func processGroup(g group, job groupJob) summaryRow {
 		return fail(fmt.Errorf("%s: %v", tmp, unwrapErr(err)))
 	}
 	defer os.RemoveAll(tmp) // no-op after a successful rename
-	save := func(name string, f *grid.Field, st fieldfile.SaveSettings) error {
-		st.Force = true
-		_, err := fieldfile.Save(filepath.Join(tmp, name), f, st)
+	save := func(name string, f *grid.Field, color bool) error {
+		_, err := saveFieldAs(filepath.Join(tmp, name), f, color, fieldfile.SaveSettings{Force: true})
 		return err
 	}
 	for name, f := range map[string]*grid.Field{"barycenter": r.Barycenter, "pixel_mean": mean, "gauss_barycenter": gfield} {
-		if err := save(name+".npy", f, fieldfile.SaveSettings{}); err != nil {
+		if err := save(name+".npy", f, false); err != nil {
 			return fail(err)
 		}
-		if err := save(name+".png", f, fieldfile.SaveSettings{Color: true}); err != nil {
+		if err := save(name+".png", f, true); err != nil {
 			return fail(err)
 		}
 	}
@@ -532,7 +531,7 @@ func processGroup(g group, job groupJob) summaryRow {
 		return fail(err)
 	}
 	err = fieldfile.WriteAtomic(filepath.Join(tmp, "convergence.png"), true, func(w io.Writer) error {
-		return sheet.Convergence(w, r.Residuals, s.Tol, "group "+g.Name, 6*vg.Inch, 4*vg.Inch)
+		return render.Convergence(w, r.Residuals, s.Tol, "group "+g.Name, 6*vg.Inch, 4*vg.Inch)
 	})
 	if err != nil {
 		return fail(err)
@@ -566,14 +565,14 @@ func processGroup(g group, job groupJob) summaryRow {
 // contactSheet lays out the inputs, the pixel mean, the barycenter and the
 // Gaussian ellipses over the pixel mean.
 func contactSheet(name string, files []string, fs []*grid.Field, mean, bary *grid.Field, gs []gaussfit.Gaussian, gb gaussfit.Gaussian) *imageNRGBA {
-	var tiles []sheet.Tile
+	var tiles []render.Tile
 	for i, f := range fs {
-		tiles = append(tiles, sheet.FieldTile(filepath.Base(files[i]), f))
+		tiles = append(tiles, render.FieldTile(filepath.Base(files[i]), f))
 	}
-	tiles = append(tiles, sheet.FieldTile("pixel mean", mean), sheet.FieldTile("barycenter", bary))
-	bg, _ := imagefile.Colorize(mean, imagefile.WriteSettings{})
+	tiles = append(tiles, render.FieldTile("pixel mean", mean), render.FieldTile("barycenter", bary))
+	bg, _ := render.Colorize(mean, imagefile.WriteSettings{})
 	dx, dy := fs[0].PixelSize()
 	zoom := max(1, 128/max(fs[0].Rows, fs[0].Cols))
-	tiles = append(tiles, sheet.Tile{Label: "Gaussian ellipses", Image: gaussfit.Overlay(bg, dx, dy, zoom, gs, gb)})
-	return sheet.Contact(tiles, sheet.Settings{Title: fmt.Sprintf("%s: %d inputs", name, len(fs))})
+	tiles = append(tiles, render.Tile{Label: "Gaussian ellipses", Image: render.Ellipses(bg, dx, dy, zoom, gs, gb)})
+	return render.Contact(tiles, render.SheetSettings{Title: fmt.Sprintf("%s: %d inputs", name, len(fs))})
 }

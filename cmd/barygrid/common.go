@@ -1,12 +1,15 @@
 package main
 
 import (
+	"barygrid/io/imagefile"
+	"barygrid/render"
 	"encoding/json"
 	"fmt"
 	"image"
 	"io"
 	"math"
 	"os"
+	"path/filepath"
 	"runtime"
 	"strconv"
 	"strings"
@@ -34,7 +37,7 @@ func outputFlags() []cli.Flag {
 	return []cli.Flag{
 		&cli.BoolFlag{Name: "force", Usage: "replace existing output files"},
 		&cli.BoolFlag{Name: "eight-bit", Usage: "write 8-bit instead of 16-bit PNG and TIFF samples"},
-		&cli.BoolFlag{Name: "color", Usage: "write PNG output through barygrid's Ember colour map"},
+		&cli.BoolFlag{Name: "color", Usage: "write PNG output as a colour picture (barygrid's own colour map, Lagoon: dark navy through teal and green to cream; brighter is more)"},
 	}
 }
 
@@ -138,8 +141,18 @@ func resampleAll(fs []*grid.Field, files []string, shape [2]int) error {
 	return nil
 }
 
-func saveSettings(c *cli.Context) fieldfile.SaveSettings {
-	return fieldfile.SaveSettings{Force: c.Bool("force"), EightBit: c.Bool("eight-bit"), Color: c.Bool("color")}
+// saveField writes f by its extension; with --color a .png goes through
+// the colour map. It returns the description of the value scaling.
+func saveField(c *cli.Context, path string, f *grid.Field) (string, error) {
+	return saveFieldAs(path, f, c.Bool("color"), fieldfile.SaveSettings{Force: c.Bool("force"), EightBit: c.Bool("eight-bit")})
+}
+
+func saveFieldAs(path string, f *grid.Field, color bool, s fieldfile.SaveSettings) (string, error) {
+	if color && strings.EqualFold(filepath.Ext(path), ".png") {
+		im, sc := render.Colorize(f, imagefile.WriteSettings{})
+		return sc.String() + ", colour map Lagoon", fieldfile.SaveImage(path, im, s.Force)
+	}
+	return fieldfile.Save(path, f, s)
 }
 
 // writeJSON writes v as indented JSON atomically.

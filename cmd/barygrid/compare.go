@@ -2,21 +2,18 @@ package main
 
 import (
 	"barygrid/ensemble"
+	"barygrid/render"
 	"encoding/csv"
 	"encoding/json"
 	"fmt"
-	"image"
-	"image/color"
 	"image/gif"
 	"io"
-	"math"
 	"os"
 	"path/filepath"
 	"strconv"
 
 	"barygrid/grid"
 	"barygrid/io/fieldfile"
-	"barygrid/io/imagefile"
 	"barygrid/sinkhorn"
 
 	"github.com/urfave/cli/v2"
@@ -75,7 +72,7 @@ func morphCommand() *cli.Command {
 				}
 				for i, f := range frames {
 					p := filepath.Join(dir, fmt.Sprintf("frame_%03d.%s", i, format))
-					if _, err := fieldfile.Save(p, f, saveSettings(c)); err != nil {
+					if _, err := saveField(c, p, f); err != nil {
 						return err
 					}
 				}
@@ -91,29 +88,9 @@ func morphCommand() *cli.Command {
 	})
 }
 
-// writeGIF writes the frames through the Ember colour map on one common
-// scale (the largest value over all frames), so brightness compares across
-// frames.
+// writeGIF writes the frames as an animation on one common scale.
 func writeGIF(path string, force bool, frames []*grid.Field) error {
-	var top float64
-	for _, f := range frames {
-		_, hi := f.MinMax()
-		top = math.Max(top, hi)
-	}
-	pal := make(color.Palette, 256)
-	for i := range pal {
-		pal[i] = imagefile.Ember[i]
-	}
-	anim := &gif.GIF{}
-	for _, f := range frames {
-		im := image.NewPaletted(image.Rect(0, 0, f.Cols, f.Rows), pal)
-		for i, v := range f.Data {
-			q := int(math.Round(v / top * 255))
-			im.Pix[(i/f.Cols)*im.Stride+i%f.Cols] = uint8(max(0, min(255, q)))
-		}
-		anim.Image = append(anim.Image, im)
-		anim.Delay = append(anim.Delay, 12)
-	}
+	anim := render.Animation(frames, 12)
 	return fieldfile.WriteAtomic(path, force, func(w io.Writer) error { return gif.EncodeAll(w, anim) })
 }
 

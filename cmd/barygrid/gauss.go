@@ -3,6 +3,7 @@ package main
 import (
 	"barygrid/ensemble"
 	"barygrid/internal/parallel"
+	"barygrid/render"
 	"encoding/json"
 	"fmt"
 	"image/png"
@@ -214,7 +215,7 @@ func gaussCommand() *cli.Command {
 				dx, dy := ref.PixelSize()
 				f := gaussfit.Render(b, ref.Rows, ref.Cols, dx, dy, p.MeanMass)
 				f.Unit = ref.Unit
-				if _, err := fieldfile.Save(out, f, saveSettings(c)); err != nil {
+				if _, err := saveField(c, out, f); err != nil {
 					return err
 				}
 			}
@@ -227,9 +228,9 @@ func gaussCommand() *cli.Command {
 				if err != nil {
 					return err
 				}
-				bg, _ := imagefile.Colorize(mean, imagefile.WriteSettings{})
+				bg, _ := render.Colorize(mean, imagefile.WriteSettings{})
 				zoom := max(1, 512/max(ref.Rows, ref.Cols))
-				im := gaussfit.Overlay(bg, dx, dy, zoom, gs[len(gs)-nfld:], b)
+				im := render.Ellipses(bg, dx, dy, zoom, gs[len(gs)-nfld:], b)
 				if err := fieldfile.WriteAtomic(overlay, c.Bool("force"), func(w io.Writer) error { return png.Encode(w, im) }); err != nil {
 					return err
 				}

@@ -4,6 +4,8 @@ import (
 	"bytes"
 	"errors"
 	"fmt"
+	"image"
+	"image/png"
 	"io"
 	"io/fs"
 	"os"
@@ -165,8 +167,12 @@ type SaveSettings struct {
 	Force bool
 	// EightBit writes 8-bit PNG/TIFF samples instead of 16-bit.
 	EightBit bool
-	// Color writes PNG through the Ember colour map.
-	Color bool
+}
+
+// SaveImage writes a picture (a colour rendering, a sheet) as PNG,
+// atomically, never replacing an existing file unless force.
+func SaveImage(path string, im image.Image, force bool) error {
+	return WriteAtomic(path, force, func(w io.Writer) error { return png.Encode(w, im) })
 }
 
 // Save writes f to path in the format its extension names (.npy exact
@@ -186,13 +192,7 @@ func Save(path string, f *grid.Field, s SaveSettings) (string, error) {
 		enc = func(w io.Writer) error { return csvgrid.Write(w, f) }
 	case ".png":
 		enc = func(w io.Writer) error {
-			var sc imagefile.Scaling
-			var err error
-			if s.Color {
-				sc, err = imagefile.WriteColorPNG(w, f, ws)
-			} else {
-				sc, err = imagefile.WritePNG(w, f, ws)
-			}
+			sc, err := imagefile.WritePNG(w, f, ws)
 			scaling = sc.String()
 			return err
 		}

@@ -41,7 +41,8 @@ type WriteSettings struct {
 	Min, Max float64
 }
 
-func (s WriteSettings) scaling(f *grid.Field) Scaling {
+// ScalingOf returns the scaling these settings give the field.
+func (s WriteSettings) ScalingOf(f *grid.Field) Scaling {
 	top := 65535
 	if s.EightBit {
 		top = 255
@@ -68,6 +69,9 @@ func integral(xs []float64) bool {
 	return true
 }
 
+// Sample returns the stored sample for a value (rounded and clipped).
+func (s Scaling) Sample(v float64) uint16 { return quantise(v, s) }
+
 func quantise(v float64, s Scaling) uint16 {
 	q := math.Round((v - s.Min) / (s.Max - s.Min) * float64(s.MaxSample))
 	if !(q > 0) { // also NaN
@@ -81,7 +85,7 @@ func quantise(v float64, s Scaling) uint16 {
 
 // Gray returns the field as a grayscale image with the scaling used.
 func Gray(f *grid.Field, s WriteSettings) (image.Image, Scaling) {
-	sc := s.scaling(f)
+	sc := s.ScalingOf(f)
 	rect := image.Rect(0, 0, f.Cols, f.Rows)
 	if s.EightBit {
 		im := image.NewGray(rect)
@@ -115,26 +119,4 @@ func WriteTIFF(w io.Writer, f *grid.Field, s WriteSettings) (Scaling, error) {
 		return sc, fmt.Errorf("imagefile: %w", err)
 	}
 	return sc, nil
-}
-
-// WriteColorPNG writes f through the Ember colour map.
-func WriteColorPNG(w io.Writer, f *grid.Field, s WriteSettings) (Scaling, error) {
-	im, sc := Colorize(f, s)
-	if err := png.Encode(w, im); err != nil {
-		return sc, fmt.Errorf("imagefile: %w", err)
-	}
-	return sc, nil
-}
-
-// Colorize maps f through the Ember colour map (256 levels).
-func Colorize(f *grid.Field, s WriteSettings) (*image.NRGBA, Scaling) {
-	s.EightBit = true
-	sc := s.scaling(f)
-	im := image.NewNRGBA(image.Rect(0, 0, f.Cols, f.Rows))
-	for i, v := range f.Data {
-		c := Ember[quantise(v, sc)]
-		o := (i/f.Cols)*im.Stride + 4*(i%f.Cols)
-		im.Pix[o], im.Pix[o+1], im.Pix[o+2], im.Pix[o+3] = c.R, c.G, c.B, 255
-	}
-	return im, sc
 }

@@ -1,4 +1,4 @@
-package sheet
+package render
 
 import (
 	"bytes"
@@ -16,7 +16,7 @@ func TestContactSheetNotBlank(t *testing.T) {
 	for i := range f.Data {
 		f.Data[i] = float64(i % 17)
 	}
-	im := Contact([]Tile{FieldTile("a", f), FieldTile("b", f), FieldTile("c", f)}, Settings{Thumb: 64, Title: "group"})
+	im := Contact([]Tile{FieldTile("a", f), FieldTile("b", f), FieldTile("c", f)}, SheetSettings{Thumb: 64, Title: "group"})
 	if im.Bounds().Dx() != 3*(64+8)+8 {
 		t.Errorf("width %d", im.Bounds().Dx())
 	}

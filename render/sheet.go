@@ -1,4 +1,4 @@
-package sheet
+package render
 
 import (
 	"fmt"
@@ -28,13 +28,13 @@ type Tile struct {
 
 // FieldTile colour-maps a field (each on its own scale) for a sheet.
 func FieldTile(label string, f *grid.Field) Tile {
-	im, _ := imagefile.Colorize(f, imagefile.WriteSettings{})
+	im, _ := Colorize(f, imagefile.WriteSettings{})
 	return Tile{Label: label, Image: im}
 }
 
-// Settings of a contact sheet; zero values mean 128-pixel thumbnails and
+// SheetSettings of a contact sheet; zero values mean 128-pixel thumbnails and
 // six columns.
-type Settings struct {
+type SheetSettings struct {
 	Thumb, Columns int
 	Title          string
 }
@@ -45,7 +45,7 @@ var (
 )
 
 // Contact returns a sheet of thumbnails with their labels under them.
-func Contact(tiles []Tile, s Settings) *image.NRGBA {
+func Contact(tiles []Tile, s SheetSettings) *image.NRGBA {
 	th, cols := s.Thumb, s.Columns
 	if th <= 0 {
 		th = 128

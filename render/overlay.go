@@ -1,15 +1,16 @@
-package gaussfit
+package render
 
 import (
+	"barygrid/gaussfit"
 	"image"
 	"image/color"
 	"math"
 )
 
-// Overlay draws the one-sigma ellipses of Gaussians (physical units, pixel
+// Ellipses draws the one-sigma ellipses of Gaussians (physical units, pixel
 // size dx, dy) over a background image of the grid, scaled up by zoom:
 // inputs as thin lines in the input colour, the barycenter as a thick line.
-func Overlay(bg image.Image, dx, dy float64, zoom int, inputs []Gaussian, bary Gaussian) *image.NRGBA {
+func Ellipses(bg image.Image, dx, dy float64, zoom int, inputs []gaussfit.Gaussian, bary gaussfit.Gaussian) *image.NRGBA {
 	b := bg.Bounds()
 	zoom = max(zoom, 1)
 	out := image.NewNRGBA(image.Rect(0, 0, b.Dx()*zoom, b.Dy()*zoom))
@@ -21,13 +22,13 @@ func Overlay(bg image.Image, dx, dy float64, zoom int, inputs []Gaussian, bary G
 	inCol := color.NRGBA{170, 220, 255, 255}
 	baryCol := color.NRGBA{255, 255, 255, 255}
 	for _, g := range inputs {
-		drawEllipse(out, EllipseOf(g), dx, dy, float64(zoom), inCol, 0)
+		drawEllipse(out, gaussfit.EllipseOf(g), dx, dy, float64(zoom), inCol, 0)
 	}
-	drawEllipse(out, EllipseOf(bary), dx, dy, float64(zoom), baryCol, 1)
+	drawEllipse(out, gaussfit.EllipseOf(bary), dx, dy, float64(zoom), baryCol, 1)
 	return out
 }
 
-func drawEllipse(im *image.NRGBA, e Ellipse, dx, dy, zoom float64, c color.NRGBA, thick int) {
+func drawEllipse(im *image.NRGBA, e gaussfit.Ellipse, dx, dy, zoom float64, c color.NRGBA, thick int) {
 	ca, sa := math.Cos(e.Angle), math.Sin(e.Angle)
 	n := int(8 * (e.Major/dx + e.Minor/dy) * zoom)
 	n = max(64, min(n, 20000))
