@@ -2,6 +2,7 @@ package main
 
 import (
 	"barygrid/ensemble"
+	"barygrid/report"
 	"errors"
 	"fmt"
 	"image/png"
@@ -86,73 +87,7 @@ func solverSettings(c *cli.Context) (sinkhorn.Settings, error) {
 	return s, nil
 }
 
-// inputReport describes one input in a report.
-type inputReport struct {
-	File     string     `json:"file"`
-	Mass     float64    `json:"mass"`
-	Dropped  float64    `json:"dropped_outside_mask,omitempty"`
-	Weight   float64    `json:"weight"`
-	Centroid [2]float64 `json:"centroid"`
-}
-
-// baryReport is the JSON written by --report (its names are an interface).
-type baryReport struct {
-	Command    string        `json:"command"`
-	Iterations int           `json:"iterations"`
-	Residual   float64       `json:"residual"`
-	Seconds    float64       `json:"seconds"`
-	Epsilon    float64       `json:"epsilon"`
-	EpsilonSet bool          `json:"epsilon_given"`
-	Converged  bool          `json:"converged"`
-	Status     string        `json:"status"`
-	Message    string        `json:"message,omitempty"`
-	Debiased   bool          `json:"debiased"`
-	Method     string        `json:"method"`
-	Relax      float64       `json:"overrelaxation"`
-	Band       int           `json:"kernel_half_width,omitempty"`
-	Tol        float64       `json:"tol"`
-	PixelSize  [2]float64    `json:"pixel_size"`
-	Unit       string        `json:"unit,omitempty"`
-	Shape      [2]int        `json:"shape"`
-	Inputs     []inputReport `json:"inputs"`
-	Output     string        `json:"output,omitempty"`
-	Scaling    string        `json:"output_scaling,omitempty"`
-	Mass       float64       `json:"output_mass"`
-	Centroid   [2]float64    `json:"output_centroid"`
-	Covariance [2][2]float64 `json:"output_covariance"`
-	Residuals  []float64     `json:"residual_history"`
-	DebiasViol float64       `json:"debias_violation,omitempty"`
-	Ranking    []rankEntry   `json:"ranking,omitempty"`
-	Unbalanced float64       `json:"unbalanced_penalty,omitempty"`
-	Masked     bool          `json:"masked,omitempty"`
-	BaryMass   float64       `json:"barycenter_mass_in_input_units"`
-	Levels     int           `json:"levels"`
-	FinestIter int           `json:"finest_level_iterations"`
-	Stages     []stageReport `json:"stages"`
-}
-
-// stageReport is one epsilon stage of the solve, for the report.
-type stageReport struct {
-	Level          int     `json:"level"`
-	Shape          [2]int  `json:"shape"`
-	Epsilon        float64 `json:"epsilon"`
-	Method         string  `json:"method"`
-	Iterations     int     `json:"iterations"`
-	Residual       float64 `json:"residual"`
-	DebiasResidual float64 `json:"debias_residual,omitempty"`
-	Seconds        float64 `json:"seconds"`
-}
-
-func stageReports(st []sinkhorn.Stage) []stageReport {
-	out := make([]stageReport, len(st))
-	for i, s := range st {
-		out[i] = stageReport{Level: s.Level, Shape: [2]int{s.Rows, s.Cols}, Epsilon: s.Epsilon, Method: s.Method.String(),
-			Iterations: s.Iterations, Residual: s.Residual, DebiasResidual: s.DebiasResidual, Seconds: s.Elapsed.Seconds()}
-	}
-	return out
-}
-
-func printRanking(ranks []rankEntry) {
+func printRanking(ranks []report.Rank) {
 	fmt.Println("divergence to the barycenter (largest first; outlier: above median + 3 scaled MAD):")
 	for _, e := range ranks {
 		flag := ""
@@ -161,44 +96,6 @@ func printRanking(ranks []rankEntry) {
 		}
 		fmt.Printf("  %12.6g  z=%6.2f  %s%s\n", e.Divergence, e.Score, e.File, flag)
 	}
-}
-
-func newBaryReport(files []string, fs []*grid.Field, weights []float64, s sinkhorn.Settings, r *sinkhorn.Result) baryReport {
-	dx, dy := fs[0].PixelSize()
-	rep := baryReport{Command: "barycenter", Iterations: r.Iterations, Residual: r.Residual, Seconds: r.Elapsed.Seconds(),
-		Epsilon: r.Epsilon, EpsilonSet: s.Epsilon != 0, Converged: r.Status == sinkhorn.Converged, Status: r.Status.String(),
-		Message: r.Message, Debiased: r.Debiased, Method: r.Method.String(), Relax: r.Relax, Band: r.Band, Tol: s.Tol,
-		PixelSize: [2]float64{dx, dy}, Unit: fs[0].Unit, Shape: [2]int{fs[0].Rows, fs[0].Cols}, Residuals: r.Residuals,
-		DebiasViol: r.DebiasResidual, Levels: r.Levels, FinestIter: r.FinestIterations, Stages: stageReports(r.Stages)}
-	if rep.Tol == 0 {
-		rep.Tol = 1e-6
-	}
-	var wsum float64
-	for i := range fs {
-		if weights == nil {
-			wsum++
-		} else {
-			wsum += weights[i]
-		}
-	}
-	for i, f := range fs {
-		w := 1.0
-		if weights != nil {
-			w = weights[i]
-		}
-		m := grid.ComputeMoments(f)
-		ir := inputReport{File: files[i], Mass: m.Mass, Weight: w / wsum, Centroid: m.Mean}
-		if i < len(r.Dropped) {
-			ir.Dropped = r.Dropped[i]
-		}
-		rep.Inputs = append(rep.Inputs, ir)
-	}
-	rep.Unbalanced, rep.Masked, rep.BaryMass = s.Unbalanced, s.Mask != nil, r.Mass
-	if r.Barycenter != nil {
-		m := grid.ComputeMoments(r.Barycenter)
-		rep.Mass, rep.Centroid, rep.Covariance = m.Mass, m.Mean, m.Cov
-	}
-	return rep
 }
 
 func barycenterCommand() *cli.Command {
@@ -218,8 +115,8 @@ func barycenterCommand() *cli.Command {
 		Flags:     flags,
 		Action: func(c *cli.Context) error {
 			files := c.Args().Slice()
-			out, report, sheetPath := c.String("out"), c.String("report"), c.String("sheet")
-			if err := checkOutputs(c.Bool("force"), out, report, sheetPath); err != nil {
+			out, reportPath, sheetPath := c.String("out"), c.String("report"), c.String("sheet")
+			if err := checkOutputs(c.Bool("force"), out, reportPath, sheetPath); err != nil {
 				return err
 			}
 			s, err := solverSettings(c)
@@ -240,7 +137,7 @@ func barycenterCommand() *cli.Command {
 			if err != nil {
 				return maskError(c, err)
 			}
-			rep := newBaryReport(files, fs, s.Weights, s, r)
+			rep := report.NewBarycenter(files, fs, s.Weights, s, r)
 			if c.Bool("rank") && r.Status == sinkhorn.Converged {
 				ranks, err := rankInputs(files, fs, r.Barycenter, s)
 				if err != nil {
@@ -259,8 +156,8 @@ func barycenterCommand() *cli.Command {
 				}
 				rep.Output, rep.Scaling = out, sc
 			}
-			if report != "" {
-				if err := writeJSON(report, c.Bool("force"), rep); err != nil {
+			if reportPath != "" {
+				if err := report.WriteJSON(reportPath, c.Bool("force"), rep); err != nil {
 					return err
 				}
 			}

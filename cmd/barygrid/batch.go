@@ -3,6 +3,7 @@ package main
 import (
 	"barygrid/ensemble"
 	"barygrid/internal/parallel"
+	"barygrid/report"
 	"crypto/sha256"
 	"encoding/csv"
 	"encoding/hex"
@@ -156,8 +157,8 @@ type groupReport struct {
 	Message    string             `json:"message,omitempty"`
 	Settings   map[string]any     `json:"settings"`
 	Inputs     []batchInput       `json:"inputs"`
-	Barycenter *baryReport        `json:"barycenter,omitempty"`
-	Gaussian   *gaussParams       `json:"gaussian,omitempty"`
+	Barycenter *report.Barycenter `json:"barycenter,omitempty"`
+	Gaussian   *report.Gaussian   `json:"gaussian,omitempty"`
 	Seconds    map[string]float64 `json:"seconds"`
 	Outputs    []string           `json:"outputs"`
 }
@@ -536,14 +537,14 @@ func processGroup(g group, job groupJob) summaryRow {
 	if err != nil {
 		return fail(err)
 	}
-	br := newBaryReport(g.Files, fs, g.Weights, s, r)
+	br := report.NewBarycenter(g.Files, fs, g.Weights, s, r)
 	br.Residuals = nil // in the plot; keeps the report readable
-	gp := gaussParams{Mean: gr.Barycenter.Mean, Covariance: rowsOf(gr.Barycenter.Cov), Solver: "fixed-point",
-		Iterations: gr.Iterations, GradNorm: gr.GradNorm, Converged: gr.Converged, Inputs: len(gs), MeanMass: mass / float64(len(gs))}
+	gp := report.NewGaussian(gr, "fixed-point", len(gs))
+	gp.MeanMass, gp.Objective = mass/float64(len(gs)), nil
 	row.Status, row.Seconds = "ok", time.Since(start).Seconds()
 	rep := groupReport{Group: g.Name, Status: "ok", Settings: settings, Inputs: inputs, Barycenter: &br, Gaussian: &gp,
 		Seconds: map[string]float64{"barycenter": baryTime, "gaussian": gaussTime, "total": row.Seconds}, Outputs: groupOutputs}
-	if err := writeJSON(filepath.Join(tmp, "report.json"), true, rep); err != nil {
+	if err := report.WriteJSON(filepath.Join(tmp, "report.json"), true, rep); err != nil {
 		return fail(err)
 	}
 	// Swap the complete folder into place.

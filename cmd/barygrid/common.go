@@ -3,10 +3,8 @@ package main
 import (
 	"barygrid/io/imagefile"
 	"barygrid/render"
-	"encoding/json"
 	"fmt"
 	"image"
-	"io"
 	"math"
 	"os"
 	"path/filepath"
@@ -156,13 +154,6 @@ func saveFieldAs(path string, f *grid.Field, color bool, s fieldfile.SaveSetting
 }
 
 // writeJSON writes v as indented JSON atomically.
-func writeJSON(path string, force bool, v any) error {
-	return fieldfile.WriteAtomic(path, force, func(w io.Writer) error {
-		enc := json.NewEncoder(w)
-		enc.SetIndent("", "  ")
-		return enc.Encode(v)
-	})
-}
 
 // checkOutputs refuses before any work when an output exists without --force.
 func checkOutputs(force bool, paths ...string) error {

@@ -3,6 +3,7 @@ package main
 import (
 	"barygrid/ensemble"
 	"barygrid/render"
+	"barygrid/report"
 	"encoding/csv"
 	"encoding/json"
 	"fmt"
@@ -196,24 +197,16 @@ func distanceCommand() *cli.Command {
 	})
 }
 
-// rankEntry is one input in the --rank table.
-type rankEntry struct {
-	File       string  `json:"file"`
-	Divergence float64 `json:"divergence"`
-	Score      float64 `json:"robust_z"`
-	Outlier    bool    `json:"outlier"`
-}
-
 // rankInputs ranks the inputs by their Sinkhorn divergence to the
 // barycenter, outliers flagged (ensemble.RankInputs).
-func rankInputs(files []string, fs []*grid.Field, bary *grid.Field, s sinkhorn.Settings) ([]rankEntry, error) {
+func rankInputs(files []string, fs []*grid.Field, bary *grid.Field, s sinkhorn.Settings) ([]report.Rank, error) {
 	rs, err := ensemble.RankInputs(fs, bary, ensemble.DistanceSettings{Solver: s})
 	if err != nil {
 		return nil, err
 	}
-	out := make([]rankEntry, len(rs))
+	out := make([]report.Rank, len(rs))
 	for i, r := range rs {
-		out[i] = rankEntry{File: files[r.Index], Divergence: r.Divergence, Score: r.Score, Outlier: r.Outlier}
+		out[i] = report.Rank{File: files[r.Index], Divergence: r.Divergence, Score: r.Score, Outlier: r.Outlier}
 	}
 	return out, nil
 }

@@ -4,6 +4,7 @@ import (
 	"barygrid/ensemble"
 	"barygrid/internal/parallel"
 	"barygrid/render"
+	"barygrid/report"
 	"encoding/json"
 	"fmt"
 	"image/png"
@@ -18,7 +19,6 @@ import (
 	"barygrid/io/imagefile"
 
 	"github.com/urfave/cli/v2"
-	"gonum.org/v1/gonum/mat"
 )
 
 // gaussianJSON is the interchange form of one Gaussian.
@@ -33,25 +33,6 @@ type gaussFile struct {
 }
 
 // gaussParams is written by --params.
-type gaussParams struct {
-	Mean       []float64   `json:"mean"`
-	Covariance [][]float64 `json:"covariance"`
-	Ellipse    *ellipseOut `json:"ellipse,omitempty"`
-	Solver     string      `json:"solver"`
-	Iterations int         `json:"iterations"`
-	GradNorm   float64     `json:"gradient_norm"`
-	Converged  bool        `json:"converged"`
-	Objective  []float64   `json:"objective_history"`
-	Seconds    float64     `json:"seconds"`
-	Inputs     int         `json:"inputs"`
-	MeanMass   float64     `json:"mean_mass,omitempty"`
-	Unit       string      `json:"unit,omitempty"`
-}
-
-type ellipseOut struct {
-	Major, Minor, AngleDeg float64
-}
-
 func readGaussians(path string) ([]gaussfit.Gaussian, []float64, error) {
 	data, err := os.ReadFile(path)
 	if err != nil {
@@ -199,12 +180,7 @@ func gaussCommand() *cli.Command {
 				return err
 			}
 			b := r.Barycenter
-			p := gaussParams{Mean: b.Mean, Covariance: rowsOf(b.Cov), Solver: s.Solver.String(), Iterations: r.Iterations,
-				GradNorm: r.GradNorm, Converged: r.Converged, Objective: r.Objective, Seconds: r.Elapsed.Seconds(), Inputs: len(gs)}
-			if len(b.Mean) == 2 {
-				e := gaussfit.EllipseOf(b)
-				p.Ellipse = &ellipseOut{Major: e.Major, Minor: e.Minor, AngleDeg: e.Angle * 180 / 3.141592653589793}
-			}
+			p := report.NewGaussian(r, s.Solver.String(), len(gs))
 			if ref != nil {
 				p.MeanMass, p.Unit = mass/float64(nfld), ref.Unit
 			}
@@ -244,7 +220,7 @@ func gaussCommand() *cli.Command {
 				}
 			}
 			if params != "" {
-				if err := writeJSON(params, c.Bool("force"), p); err != nil {
+				if err := report.WriteJSON(params, c.Bool("force"), p); err != nil {
 					return err
 				}
 			}
@@ -253,18 +229,6 @@ func gaussCommand() *cli.Command {
 			return nil
 		},
 	})
-}
-
-func rowsOf(s *mat.SymDense) [][]float64 {
-	n := s.SymmetricDim()
-	out := make([][]float64, n)
-	for i := range out {
-		out[i] = make([]float64, n)
-		for j := range out[i] {
-			out[i][j] = s.At(i, j)
-		}
-	}
-	return out
 }
 
 func fmtVec(v []float64) string {
