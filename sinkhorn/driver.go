@@ -244,6 +244,7 @@ func (p *problem) solve() (*Result, iteration) {
 			}
 		}
 		var status Status
+		it = nil // the previous stage's buffers may go before the next allocates
 		it, status = rn.stage(lv, sp, pot, tol, budget, final)
 		if status == NumericalFailure {
 			break
