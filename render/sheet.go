@@ -1,6 +1,7 @@
 package render
 
 import (
+	"barygrid/gaussfit"
 	"fmt"
 	"image"
 	"image/color"
@@ -145,4 +146,20 @@ func (decades) Ticks(lo, hi float64) []plot.Tick {
 		ts = []plot.Tick{{Value: lo, Label: fmt.Sprintf("%.2g", lo)}, {Value: hi, Label: fmt.Sprintf("%.2g", hi)}}
 	}
 	return ts
+}
+
+// Summary lays out the inputs (labelled), their pixel mean, the barycenter
+// and the Gaussian ellipses (inputs and their barycenter) over the pixel
+// mean: the sheet a person looks at first.
+func Summary(title string, labels []string, fs []*grid.Field, mean, bary *grid.Field, gs []gaussfit.Gaussian, gb gaussfit.Gaussian) *image.NRGBA {
+	var tiles []Tile
+	for i, f := range fs {
+		tiles = append(tiles, FieldTile(labels[i], f))
+	}
+	tiles = append(tiles, FieldTile("pixel mean", mean), FieldTile("barycenter", bary))
+	bg, _ := Colorize(mean, imagefile.WriteSettings{})
+	dx, dy := fs[0].PixelSize()
+	zoom := max(1, 128/max(fs[0].Rows, fs[0].Cols))
+	tiles = append(tiles, Tile{Label: "Gaussian ellipses", Image: Ellipses(bg, dx, dy, zoom, gs, gb)})
+	return Contact(tiles, SheetSettings{Title: fmt.Sprintf("%s: %d inputs", title, len(fs))})
 }

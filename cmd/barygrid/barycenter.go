@@ -2,12 +2,12 @@ package main
 
 import (
 	"barygrid/ensemble"
+	"barygrid/render"
 	"barygrid/report"
 	"errors"
 	"fmt"
-	"image/png"
-	"io"
 	"os"
+	"path/filepath"
 	"time"
 
 	"barygrid/gaussfit"
@@ -207,8 +207,11 @@ func writeSheet(path string, force bool, title string, files []string, fs []*gri
 		dx, dy := fs[0].PixelSize()
 		bary = gaussfit.Render(gr.Barycenter, fs[0].Rows, fs[0].Cols, dx, dy, 1)
 	}
-	im := contactSheet(title, files, fs, mean, bary, gs, gr.Barycenter)
-	return fieldfile.WriteAtomic(path, force, func(w io.Writer) error { return png.Encode(w, im) })
+	labels := make([]string, len(files))
+	for i, f := range files {
+		labels[i] = filepath.Base(f)
+	}
+	return fieldfile.SaveImage(path, render.Summary(title, labels, fs, mean, bary, gs, gr.Barycenter), force)
 }
 
 // maskError names the --mask file in errors about the mask.

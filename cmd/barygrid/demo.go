@@ -1,6 +1,7 @@
 package main
 
 import (
+	"barygrid/batch"
 	"encoding/json"
 	"fmt"
 	"math"
@@ -44,7 +45,7 @@ func demoCommand() *cli.Command {
 			}
 			// The demo is the daily job on invented data: write the inputs
 			// as files, one folder per group, then run the batch over them.
-			var rows []summaryRow
+			var rows []batch.Row
 			for _, set := range sets {
 				g, err := writeDemoInputs(filepath.Join(dir, "inputs", set.name), set, force)
 				if err != nil {
@@ -52,7 +53,7 @@ func demoCommand() *cli.Command {
 				}
 				s := sinkhorn.Settings{Tol: demoTol, Workers: c.Int("threads")}
 				settings := map[string]any{"tol": demoTol, "pixel_size": set.load.Dx, "unit": set.load.Unit}
-				r := processGroup(g, groupJob{out: dir, load: set.load, solver: s, settings: settings, force: force})
+				r := batch.Process(g, batch.Job{Out: dir, Load: set.load, Solver: s, Key: settings, Force: force})
 				if r.Status == "failed" {
 					return fmt.Errorf("demo group %s failed: %s", set.name, r.Message)
 				}
@@ -61,7 +62,7 @@ func demoCommand() *cli.Command {
 					return err
 				}
 			}
-			if err := writeSummary(filepath.Join(dir, "summary.csv"), rows); err != nil {
+			if err := batch.WriteSummary(filepath.Join(dir, "summary.csv"), rows); err != nil {
 				return err
 			}
 			fmt.Printf("summary: %s (the same as: barygrid batch --out %s %s, with each set's --pixel-size)\n",
@@ -73,16 +74,16 @@ func demoCommand() *cli.Command {
 
 // writeDemoInputs saves the set's fields as .npy files. Existing files are
 // kept unless force: the scenario is deterministic, and a user's edits win.
-func writeDemoInputs(sub string, set demoSet, force bool) (group, error) {
+func writeDemoInputs(sub string, set demoSet, force bool) (batch.Group, error) {
 	if err := os.MkdirAll(sub, 0o755); err != nil {
-		return group{}, fmt.Errorf("%s: %v", sub, err)
+		return batch.Group{}, fmt.Errorf("%s: %v", sub, err)
 	}
-	g := group{Name: set.name}
+	g := batch.Group{Name: set.name}
 	for i, f := range set.fields {
 		p := filepath.Join(sub, fmt.Sprintf("%s_%02d.npy", set.name, i+1))
 		if _, err := os.Stat(p); err != nil || force {
 			if _, err := fieldfile.Save(p, f, fieldfile.SaveSettings{Force: force}); err != nil {
-				return group{}, err
+				return batch.Group{}, err
 			}
 		}
 		g.Files = append(g.Files, p)
@@ -98,7 +99,7 @@ func printDemoGroup(dir string, set demoSet) error {
 	if err != nil {
 		return fmt.Errorf("%s: %v", sub, unwrapErr(err))
 	}
-	var rep groupReport
+	var rep batch.Report
 	if err := json.Unmarshal(data, &rep); err != nil || rep.Barycenter == nil || rep.Gaussian == nil {
 		return fmt.Errorf("%s: unreadable report.json", sub)
 	}

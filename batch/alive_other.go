@@ -1,6 +1,6 @@
 //go:build !unix
 
-package main
+package batch
 
 // alive cannot tell here, so a lock is never taken for stale.
 func alive(pid int) bool { return true }

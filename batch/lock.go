@@ -1,4 +1,4 @@
-package main
+package batch
 
 import (
 	"errors"
@@ -9,15 +9,14 @@ import (
 	"strings"
 )
 
-// lockName is the lock a batch run holds on its output folder, so that two
+// LockName is the lock a batch run holds on its output folder, so that two
 // runs (a resubmitted cluster job, a second terminal) do not both compute
 // every group and overwrite each other's results.
-const lockName = ".barygrid-batch.lock"
+const LockName = ".barygrid-batch.lock"
 
-// lockOutput takes the output folder's lock, or says which process holds
-// it. A lock whose process is gone (same host) is stale and taken over.
-func lockOutput(dir string) (release func(), err error) {
-	path := filepath.Join(dir, lockName)
+// Lock takes the output folder's lock, or says which process holds it. A lock whose process is gone (same host) is stale and taken over.
+func Lock(dir string) (release func(), err error) {
+	path := filepath.Join(dir, LockName)
 	host, _ := os.Hostname()
 	for try := 0; try < 2; try++ {
 		f, err := os.OpenFile(path, os.O_WRONLY|os.O_CREATE|os.O_EXCL, 0o644)
@@ -27,7 +26,7 @@ func lockOutput(dir string) (release func(), err error) {
 			return func() { os.Remove(path) }, nil
 		}
 		if !errors.Is(err, os.ErrExist) {
-			return nil, fmt.Errorf("%s: %v", path, unwrapErr(err))
+			return nil, fmt.Errorf("%s: %v", path, pathCause(err))
 		}
 		data, _ := os.ReadFile(path)
 		fields := strings.Fields(string(data))

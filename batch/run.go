@@ -1,0 +1,50 @@
+package batch
+
+import (
+	"runtime"
+
+	"barygrid/internal/parallel"
+)
+
+// RunSettings of Run. The zero value runs as many groups at once as there
+// are CPUs, without a memory bound.
+type RunSettings struct {
+	// Jobs bounds the groups computed at once; zero means the CPUs.
+	Jobs int
+	// Memory, when positive, bounds the estimated memory of the groups
+	// computed at once, in bytes: about nine float64 arrays per input pixel.
+	Memory float64
+	// Done, when set, is called after each group (from several goroutines
+	// one at a time is not promised: guard what it shares).
+	Done func(Row)
+}
+
+// Run processes the groups into job.Out, several at once, and returns one
+// row per group in their order. The CPUs are shared: each group's solver
+// gets CPUs / jobs workers.
+func Run(groups []Group, job Job, s RunSettings) []Row {
+	cpus := runtime.GOMAXPROCS(0)
+	jobs := s.Jobs
+	if jobs <= 0 {
+		jobs = cpus
+	}
+	var worst float64
+	for _, g := range groups {
+		worst = max(worst, float64(len(g.Files)))
+	}
+	if s.Memory > 0 && worst > 0 {
+		if px := firstPixels(groups); px > 0 {
+			jobs = max(1, min(jobs, int(s.Memory/(worst*float64(px)*8*9))))
+		}
+	}
+	rows := make([]Row, len(groups))
+	parallel.For(len(groups), jobs, func(i int) {
+		jb := job
+		jb.Solver.Workers = max(1, cpus/jobs)
+		rows[i] = Process(groups[i], jb)
+		if s.Done != nil {
+			s.Done(rows[i])
+		}
+	})
+	return rows
+}
