@@ -193,3 +193,24 @@ func SameShape(fs []*Field, names []string) error {
 	}
 	return errors.New(msg)
 }
+
+// DefaultMaxPixels is the size limit of the readers when ReadLimits sets
+// none: 2^28 pixels is 2 GiB as float64, a tenth of a 24 GiB machine, which
+// leaves room for the solver's buffers.
+const DefaultMaxPixels = 1 << 28
+
+// ReadLimits bound what a reader accepts, checked against the size a file
+// declares before any pixel buffer is allocated. Every file reader takes
+// them (npy, csvgrid and imagefile name them ReadSettings). The zero value
+// means DefaultMaxPixels.
+type ReadLimits struct {
+	MaxPixels int
+}
+
+// Pixels returns the pixel limit in force.
+func (l ReadLimits) Pixels() int {
+	if l.MaxPixels <= 0 {
+		return DefaultMaxPixels
+	}
+	return l.MaxPixels
+}

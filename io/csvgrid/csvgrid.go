@@ -12,20 +12,12 @@ import (
 	"barygrid/grid"
 )
 
-// DefaultMaxPixels is the value limit used when ReadSettings sets none.
-const DefaultMaxPixels = 1 << 28
-
-// ReadSettings control parsing; the zero value means DefaultMaxPixels.
-type ReadSettings struct {
-	MaxPixels int
-}
+// ReadSettings bound what Read accepts (grid.ReadLimits).
+type ReadSettings = grid.ReadLimits
 
 // Read parses a delimited numeric grid held in data.
 func Read(data []byte, s ReadSettings) (*grid.Field, error) {
-	limit := s.MaxPixels
-	if limit <= 0 {
-		limit = DefaultMaxPixels
-	}
+	limit := s.Pixels()
 	if bytes.IndexByte(data, 0) >= 0 {
 		return nil, fmt.Errorf("csvgrid: binary data, not a text grid")
 	}

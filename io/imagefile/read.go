@@ -16,24 +16,12 @@ import (
 	_ "golang.org/x/image/tiff"
 )
 
-// DefaultMaxPixels bounds the declared image size accepted by Read when the
-// caller sets none: 2^28 pixels is 2 GiB as float64, a tenth of a 24 GiB
-// machine, leaving room for the solver's buffers.
-const DefaultMaxPixels = 1 << 28
-
-// ReadSettings control decoding. The zero value means DefaultMaxPixels.
-type ReadSettings struct {
-	// MaxPixels refuses images whose header declares more pixels, before
-	// any pixel buffer is allocated.
-	MaxPixels int
-}
+// ReadSettings bound what Read accepts (grid.ReadLimits).
+type ReadSettings = grid.ReadLimits
 
 // Read decodes an image held in data. The format is taken from the content.
 func Read(data []byte, s ReadSettings) (f *grid.Field, err error) {
-	limit := s.MaxPixels
-	if limit <= 0 {
-		limit = DefaultMaxPixels
-	}
+	limit := s.Pixels()
 	cfg, format, err := image.DecodeConfig(bytes.NewReader(data))
 	if err != nil {
 		return nil, fmt.Errorf("imagefile: %w", err)

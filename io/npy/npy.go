@@ -14,22 +14,14 @@ import (
 	"gonum.org/v1/gonum/mat"
 )
 
-// DefaultMaxPixels is the element limit used when ReadSettings sets none.
-const DefaultMaxPixels = 1 << 28
-
-// ReadSettings control decoding; the zero value means DefaultMaxPixels.
-type ReadSettings struct {
-	MaxPixels int
-}
+// ReadSettings bound what Read accepts (grid.ReadLimits).
+type ReadSettings = grid.ReadLimits
 
 var dtypeRE = regexp.MustCompile(`^'([<>|=])([a-zA-Z])(\d+)'$`)
 
 // Read decodes a .npy file held in data.
 func Read(data []byte, s ReadSettings) (f *grid.Field, err error) {
-	limit := s.MaxPixels
-	if limit <= 0 {
-		limit = DefaultMaxPixels
-	}
+	limit := s.Pixels()
 	if !bytes.HasPrefix(data, []byte("\x93NUMPY")) {
 		return nil, fmt.Errorf("npy: not a NumPy file (bad magic)")
 	}
