@@ -203,12 +203,15 @@ const (
 	// Gradient: Riemannian gradient descent, S <- M S M with
 	// M = (1 - eta) I + eta sum_k w_k T_k.
 	Gradient
-	// Stochastic: one input (or a minibatch) per step with step eta_t.
+	// Stochastic: stochastic gradient descent, passes over the inputs
+	// drawn at random in proportion to their weights, a few per step, with
+	// a decreasing step eta_t: for many fits, where one full gradient is
+	// costly.
 	Stochastic
 )
 
 func (s Solver) String() string {
-	return [...]string{"fixed-point", "gradient", "stochastic"}[s]
+	return [...]string{"fixed-point", "gradient-descent", "sampled"}[s]
 }
 
 // Settings of a barycenter computation; zero values mean the defaults.
@@ -219,12 +222,16 @@ type Settings struct {
 	// Tol stops when the gradient norm |sum_k w_k T_k - I|_F falls below it;
 	// zero means 1e-10. Not used by Stochastic, which runs its passes.
 	Tol float64
-	// MaxIter caps iterations; zero means 1000 (Stochastic: 10 passes).
+	// MaxIter caps iterations of FixedPoint and Gradient; zero means 1000.
 	MaxIter int
+	// Passes is the number of passes over the inputs of Stochastic; zero
+	// means 10.
+	Passes int
 	// Step is the gradient-descent step eta; zero means 1.
 	Step float64
-	// Batch is the stochastic minibatch size; zero means 1.
-	Batch int
+	// FitsPerStep is the number of inputs Stochastic draws per step; zero
+	// means 1.
+	FitsPerStep int
 	// Seed makes stochastic runs reproducible.
 	Seed uint64
 	// Start is the initial covariance; nil means the weighted mean of the
@@ -345,11 +352,11 @@ func Barycenter(gs []Gaussian, s Settings) (*Result, error) {
 			}
 		}
 	case Stochastic:
-		passes := maxIter
+		passes := s.Passes
 		if passes == 0 {
 			passes = 10
 		}
-		batch := max(1, s.Batch)
+		batch := max(1, s.FitsPerStep)
 		rng := rand.New(rand.NewPCG(s.Seed, 0x5eed))
 		// Sampling inputs in proportion to their weights makes each step an
 		// unbiased estimate of the full gradient; eta_t = 1/(t+1) per

@@ -178,7 +178,7 @@ func TestStochasticRate(t *testing.T) {
 		var s float64
 		for seed := uint64(0); seed < 40; seed++ {
 			gs := pop(rand.New(rand.NewPCG(100+seed, 7)), n)
-			r, err := Barycenter(gs, Settings{Solver: Stochastic, MaxIter: 1, Seed: seed, Start: sym(1, 0, 1)})
+			r, err := Barycenter(gs, Settings{Solver: Stochastic, Passes: 1, Seed: seed, Start: sym(1, 0, 1)})
 			if err != nil {
 				t.Fatal(err)
 			}

@@ -26,7 +26,7 @@ func solverFlags() []cli.Flag {
 		&cli.Float64Flag{Name: "tol", Value: 1e-6, Usage: "stop when every input's transport plan matches the input to this fraction of its mass (first-marginal violation, L1)"},
 		&cli.IntFlag{Name: "max-iter", Value: 10000, Usage: "iteration cap"},
 		&cli.BoolFlag{Name: "debias", Usage: "remove the blur of a large epsilon (debiased barycenter); on thin structures its answer can grow streaks and it converges slowly, so it is off by default"},
-		&cli.StringFlag{Name: "method", Value: "auto", Usage: "iteration: auto, scaling or log"},
+		&cli.StringFlag{Name: "method", Value: "auto", Usage: "how numbers are held: auto; scaling (fastest, fails when epsilon is small for the distances mass travels); log (log domain: always works, slower)"},
 		&cli.IntFlag{Name: "threads", DefaultText: "all CPUs", Usage: "worker goroutines (results do not depend on it)"},
 		&cli.Float64Flag{Name: "unbalanced", DefaultText: "off: every input is normalised to the same mass", Usage: "let total intensity differ between inputs: creating or destroying mass costs `RHO` (squared physical units) per unit of mass mismatch, moving it costs its squared distance (KL-relaxed marginals)"},
 		&cli.StringFlag{Name: "mask", Usage: "confine the barycenter to the non-zero pixels of `FILE`"},

@@ -27,7 +27,7 @@ func inputFlags() []cli.Flag {
 		&cli.BoolFlag{Name: "invert", Usage: "read dark objects on a light background (value -> max - value)"},
 		&cli.StringFlag{Name: "background", Usage: "subtract a constant `LEVEL`, or a percentile written pNN (p10), and clip at zero"},
 		&cli.IntFlag{Name: "max-pixels", Value: 1 << 28, Usage: "refuse inputs declaring more pixels than this, before reading them"},
-		&cli.StringFlag{Name: "resample", Usage: "resample every input to `ROWSxCOLS` (off: differing shapes are an error)"},
+		&cli.StringFlag{Name: "resample", Usage: "resample every input to `ROWSxCOLS`, rows first (128x96: 128 rows high, 96 columns wide), keeping the physical extent; off: differing shapes are an error"},
 	}
 }
 

@@ -81,14 +81,15 @@ func unwrapErr(err error) error {
 func gaussCommand() *cli.Command {
 	flags := append(inputFlags(), outputFlags()...)
 	flags = append(flags,
-		&cli.StringFlag{Name: "solver", Value: "fixed-point", Usage: "fixed-point, gradient or stochastic"},
-		&cli.Uint64Flag{Name: "seed", Value: 1, Usage: "random seed of the stochastic solver"},
+		&cli.StringFlag{Name: "algorithm", Value: "fixed-point", Usage: "how to find the average: fixed-point (the classical iteration), gradient-descent (steps of --step-size), or sampled (stochastic gradient descent: passes over the fits in random order, for very many fits)"},
 		&cli.StringFlag{Name: "weights", Usage: "comma-separated weights, one per input"},
-		&cli.Float64Flag{Name: "tol", Value: 1e-10, Usage: "stop when the gradient norm is below this"},
-		&cli.IntFlag{Name: "max-iter", DefaultText: "1000, or 10 passes (stochastic)", Usage: "iteration cap (stochastic: passes over the inputs)"},
-		&cli.Float64Flag{Name: "step", DefaultText: "1", Usage: "gradient step size (stochastic: step/sqrt(t) instead of 1/(t+1))"},
-		&cli.IntFlag{Name: "batch", Value: 1, Usage: "stochastic minibatch size"},
-		&cli.BoolFlag{Name: "sheppard", Usage: "subtract the pixel-grouping variance dx^2/12 from each fit"},
+		&cli.Float64Flag{Name: "tol", Value: 1e-10, Usage: "fixed-point and gradient-descent stop when the averaged map differs from the identity by less than this (gradient norm)"},
+		&cli.IntFlag{Name: "max-iter", DefaultText: "1000", Usage: "iteration cap of fixed-point and gradient-descent"},
+		&cli.Float64Flag{Name: "step-size", DefaultText: "1", Usage: "step of gradient-descent; for sampled, the first step (later ones shrink as its value / sqrt(t))"},
+		&cli.IntFlag{Name: "passes", DefaultText: "10", Usage: "sampled: passes over the fits"},
+		&cli.IntFlag{Name: "fits-per-step", DefaultText: "1", Usage: "sampled: fits drawn per step"},
+		&cli.Uint64Flag{Name: "seed", Value: 1, Usage: "sampled: random seed (the same seed gives the same result)"},
+		&cli.BoolFlag{Name: "pixel-correction", Usage: "remove each pixel's own spread from the fitted covariances (dx^2/12 per axis, Sheppard's correction)"},
 		&cli.StringFlag{Name: "out", Usage: "render the barycenter Gaussian on the inputs' grid to `FILE`"},
 		&cli.StringFlag{Name: "params", Usage: "write the barycenter parameters and solver figures to `FILE.json`"},
 		&cli.StringFlag{Name: "sheet", Usage: "write a contact sheet PNG (inputs, pixel mean, rendered Gaussian barycenter, ellipses) to `FILE`"},
@@ -110,17 +111,17 @@ func gaussCommand() *cli.Command {
 			if err := checkOutputs(c.Bool("force"), out, params, overlay, sheetPath); err != nil {
 				return err
 			}
-			s := gaussfit.Settings{Tol: c.Float64("tol"), MaxIter: c.Int("max-iter"), Step: c.Float64("step"),
-				Batch: c.Int("batch"), Seed: c.Uint64("seed")}
-			switch c.String("solver") {
+			s := gaussfit.Settings{Tol: c.Float64("tol"), MaxIter: c.Int("max-iter"), Step: c.Float64("step-size"),
+				Passes: c.Int("passes"), FitsPerStep: c.Int("fits-per-step"), Seed: c.Uint64("seed")}
+			switch c.String("algorithm") {
 			case "fixed-point":
 				s.Solver = gaussfit.FixedPoint
-			case "gradient":
+			case "gradient-descent":
 				s.Solver = gaussfit.Gradient
-			case "stochastic":
+			case "sampled":
 				s.Solver = gaussfit.Stochastic
 			default:
-				return usagef("--solver: want fixed-point, gradient or stochastic, got %q", c.String("solver"))
+				return usagef("--algorithm: want fixed-point, gradient-descent or sampled, got %q", c.String("algorithm"))
 			}
 			var (
 				gs     []gaussfit.Gaussian
@@ -148,7 +149,7 @@ func gaussCommand() *cli.Command {
 					return err
 				}
 				for i, f := range fs {
-					g, m, err := gaussfit.Fit(f, gaussfit.FitSettings{Sheppard: c.Bool("sheppard")})
+					g, m, err := gaussfit.Fit(f, gaussfit.FitSettings{Sheppard: c.Bool("pixel-correction")})
 					if err != nil {
 						return fmt.Errorf("%s: %w", fields[i], err)
 					}

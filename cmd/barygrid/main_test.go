@@ -133,7 +133,7 @@ func TestErrorsAndExitCodes(t *testing.T) {
 		{[]string{"barycenter", "--no-such-flag", files[0]}, 2, "no-such-flag"},
 		{[]string{"barycenter", "--epsilon", "-1", files[0]}, 2, "--epsilon must be positive"},
 		{[]string{"frobnicate"}, 2, "frobnicate"},
-		{[]string{"gauss", "--solver", "newton", files[0]}, 2, "--solver"},
+		{[]string{"gauss", "--algorithm", "newton", files[0]}, 2, "--algorithm"},
 	}
 	for _, tc := range cases {
 		code, _, errs := runCLI(t, tc.args...)
