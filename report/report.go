@@ -78,6 +78,11 @@ type Barycenter struct {
 	Levels       int           `json:"levels"`
 	FinestIter   int           `json:"finest_level_iterations"`
 	Stages       []Stage       `json:"stages"`
+	// Spread is the weighted mean squared transport distance of the inputs
+	// to the barycenter (squared physical units), when maps were asked for.
+	Spread float64 `json:"spread,omitempty"`
+	// Maps is the folder the displacement maps went to.
+	Maps string `json:"maps,omitempty"`
 }
 
 // NewBarycenter builds the report of a barycenter of the fields (files

@@ -2,12 +2,16 @@ package main
 
 import (
 	"barygrid/ensemble"
+	"barygrid/io/imagefile"
+	"barygrid/io/npy"
 	"barygrid/render"
 	"barygrid/report"
 	"errors"
 	"fmt"
+	"io"
 	"os"
 	"path/filepath"
+	"strings"
 	"time"
 
 	"barygrid/gaussfit"
@@ -106,6 +110,7 @@ func barycenterCommand() *cli.Command {
 		&cli.StringFlag{Name: "out", Usage: "write the barycenter to `FILE` (.npy, .csv, .png, .tif)"},
 		&cli.StringFlag{Name: "report", Usage: "write a JSON report to `FILE.json`"},
 		&cli.StringFlag{Name: "sheet", Usage: "write a contact sheet PNG (inputs, pixel mean, barycenter, Gaussian ellipses) to `FILE`"},
+		&cli.StringFlag{Name: "maps", Usage: "write where the inputs differ to folder `DIR`: each input's displacement from the barycenter (NAME.displacement.npy, rows x columns x 2: x then y, physical units, and NAME.displacement.png arrows over the barycenter) and the mean displacement length (variability.npy, variability.png with a colour bar); the report gets the spread"},
 		&cli.BoolFlag{Name: "rank", Usage: "rank the inputs by Sinkhorn divergence to the barycenter and flag outliers (median + 3 scaled MAD)"},
 	)
 	return withUsage(&cli.Command{
@@ -155,6 +160,17 @@ func barycenterCommand() *cli.Command {
 					return err
 				}
 				rep.Output, rep.Scaling = out, sc
+			}
+			if dir := c.String("maps"); dir != "" && r.Status == sinkhorn.Converged {
+				v, err := sinkhorn.Maps(fs, s, r)
+				if err != nil {
+					return err
+				}
+				if err := writeMaps(dir, c.Bool("force"), files, r.Barycenter, v); err != nil {
+					return err
+				}
+				rep.Spread, rep.Maps = v.Spread, dir
+				fmt.Printf("spread of the inputs around the barycenter: %.4g%s (maps in %s)\n", v.Spread, unitSq(fs[0].Unit), dir)
 			}
 			if reportPath != "" {
 				if err := report.WriteJSON(reportPath, c.Bool("force"), rep); err != nil {
@@ -220,4 +236,44 @@ func maskError(c *cli.Context, err error) error {
 		return fmt.Errorf("%s: %w", c.String("mask"), err)
 	}
 	return err
+}
+
+// writeMaps writes the displacement of every input, pictures of them over
+// the barycenter, and the variability map with its colour bar.
+func writeMaps(dir string, force bool, files []string, bary *grid.Field, v *sinkhorn.Variation) error {
+	if err := os.MkdirAll(dir, 0o755); err != nil {
+		return fmt.Errorf("%s: %v", dir, unwrapErr(err))
+	}
+	_, top := bary.MinMax()
+	mask := make([]bool, len(bary.Data))
+	for i, x := range bary.Data {
+		mask[i] = x > 0.05*top
+	}
+	bg, _ := render.Colorize(bary, imagefile.WriteSettings{})
+	zoom := max(1, 512/max(bary.Rows, bary.Cols))
+	step := max(1, max(bary.Rows, bary.Cols)/24)
+	for i, d := range v.Displacements {
+		name := strings.TrimSuffix(filepath.Base(files[i]), filepath.Ext(files[i]))
+		data := make([]float64, 0, 2*len(d.X.Data))
+		for j := range d.X.Data {
+			data = append(data, d.X.Data[j], d.Y.Data[j])
+		}
+		err := fieldfile.WriteAtomic(filepath.Join(dir, name+".displacement.npy"), force, func(w io.Writer) error {
+			return npy.WriteArray(w, []int{bary.Rows, bary.Cols, 2}, data)
+		})
+		if err != nil {
+			return err
+		}
+		if err := fieldfile.SaveImage(filepath.Join(dir, name+".displacement.png"), render.Arrows(bg, d.X, d.Y, mask, step, zoom), force); err != nil {
+			return err
+		}
+	}
+	if _, err := fieldfile.Save(filepath.Join(dir, "variability.npy"), v.Variability, fieldfile.SaveSettings{Force: force}); err != nil {
+		return err
+	}
+	unit := v.Variability.Unit
+	if unit == "" {
+		unit = "px"
+	}
+	return fieldfile.SaveImage(filepath.Join(dir, "variability.png"), render.WithColorBar(v.Variability, unit, zoom), force)
 }

@@ -1,6 +1,8 @@
 package main
 
 import (
+	"encoding/json"
+	"math"
 	"os"
 	"path/filepath"
 	"strconv"
@@ -133,5 +135,40 @@ func TestHelpShowsNoZeroDefaults(t *testing.T) {
 		if strings.Contains(out+errs, "(default: 0)") {
 			t.Errorf("%s --help shows (default: 0)", cmd)
 		}
+	}
+}
+
+// --maps writes each input's displacement (rows x cols x 2) and the
+// variability map, and the report carries the spread: for translates by
+// (0, 0), (6, 2) and (3, 6) px the variance of the shifts, 12.2 px^2
+// (standard fact: the barycentric map of translates is the translation).
+func TestBarycenterMaps(t *testing.T) {
+	dir := t.TempDir()
+	files := writeBlobs(t, dir)
+	maps, rep := filepath.Join(dir, "maps"), filepath.Join(dir, "r.json")
+	code, _, errs := runCLI(t, append([]string{"barycenter", "--epsilon", "0.25", "--tol", "1e-9", "--maps", maps, "--report", rep}, files...)...)
+	if code != 0 {
+		t.Fatalf("exit %d: %s", code, errs)
+	}
+	for _, f := range []string{"b1.displacement.npy", "b1.displacement.png", "b3.displacement.npy", "variability.npy", "variability.png"} {
+		if st, err := os.Stat(filepath.Join(maps, f)); err != nil || st.Size() == 0 {
+			t.Errorf("%s: %v", f, err)
+		}
+	}
+	data, _ := os.ReadFile(filepath.Join(maps, "b2.displacement.npy"))
+	if !strings.Contains(string(data[:128]), "'shape': (24, 24, 2)") {
+		t.Errorf("displacement header %q", data[:80])
+	}
+	var r struct {
+		Spread float64 `json:"spread"`
+	}
+	raw, _ := os.ReadFile(rep)
+	if err := json.Unmarshal(raw, &r); err != nil {
+		t.Fatal(err)
+	}
+	// Centroids (8,10), (14,12), (11,16): mean (11, 12.667); variance
+	// (9 + 9 + 0)/3 + (7.111 + 0.444 + 11.111)/3 = 6 + 6.222.
+	if want := 6 + 56.0/9; math.Abs(r.Spread-want) > 0.02*want {
+		t.Errorf("spread %g, want %g", r.Spread, want)
 	}
 }

@@ -2,8 +2,10 @@ package npy
 
 import (
 	"bytes"
+	"encoding/binary"
 	"fmt"
 	"io"
+	"math"
 	"regexp"
 	"strconv"
 	"strings"
@@ -181,4 +183,38 @@ func Write(w io.Writer, f *grid.Field) error {
 		return fmt.Errorf("npy: %w", err)
 	}
 	return nil
+}
+
+// WriteArray stores a C-order float64 array of any shape (for example the
+// H x W x 2 displacement fields), little-endian, in NPY format 1.0 (the
+// header padded so that the data start at a multiple of 64 bytes).
+func WriteArray(w io.Writer, shape []int, data []float64) error {
+	n := 1
+	dims := make([]string, len(shape))
+	for i, d := range shape {
+		if d < 0 {
+			return fmt.Errorf("npy: negative dimension %d", d)
+		}
+		n *= d
+		dims[i] = strconv.Itoa(d)
+	}
+	if n != len(data) {
+		return fmt.Errorf("npy: %w: shape %v holds %d values, got %d", grid.ErrShape, shape, n, len(data))
+	}
+	tuple := strings.Join(dims, ", ")
+	if len(shape) == 1 {
+		tuple += ","
+	}
+	header := fmt.Sprintf("{'descr': '<f8', 'fortran_order': False, 'shape': (%s), }", tuple)
+	total := 10 + len(header) + 1
+	header += strings.Repeat(" ", (64-total%64)%64) + "\n"
+	buf := make([]byte, 10, 10+len(header)+8*len(data))
+	copy(buf, "\x93NUMPY\x01\x00")
+	binary.LittleEndian.PutUint16(buf[8:], uint16(len(header)))
+	buf = append(buf, header...)
+	for _, v := range data {
+		buf = binary.LittleEndian.AppendUint64(buf, math.Float64bits(v))
+	}
+	_, err := w.Write(buf)
+	return err
 }

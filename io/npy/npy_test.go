@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"math"
 	"os"
+	"os/exec"
 	"path/filepath"
 	"strings"
 	"testing"
@@ -115,4 +116,33 @@ func sameField(a, b *grid.Field) bool {
 		}
 	}
 	return true
+}
+
+// A 3-D array written by WriteArray reads back in numpy with its shape and
+// values (checked with Debian's numpy when it is installed).
+func TestWriteArrayNumpy(t *testing.T) {
+	py := "/usr/bin/python3"
+	if _, err := os.Stat(py); err != nil {
+		t.Skip("no /usr/bin/python3")
+	}
+	if err := exec.Command(py, "-c", "import numpy").Run(); err != nil {
+		t.Skip("numpy is not installed")
+	}
+	data := make([]float64, 3*4*2)
+	for i := range data {
+		data[i] = float64(i) + 0.25
+	}
+	p := filepath.Join(t.TempDir(), "a.npy")
+	f, _ := os.Create(p)
+	if err := WriteArray(f, []int{3, 4, 2}, data); err != nil {
+		t.Fatal(err)
+	}
+	f.Close()
+	out, err := exec.Command(py, "-c", "import numpy as np,sys; a=np.load(sys.argv[1]); print(a.shape, a[2,3,1], a.dtype)", p).CombinedOutput()
+	if err != nil {
+		t.Fatalf("numpy: %v %s", err, out)
+	}
+	if got := strings.TrimSpace(string(out)); got != "(3, 4, 2) 23.25 float64" {
+		t.Errorf("numpy reads %q", got)
+	}
 }
