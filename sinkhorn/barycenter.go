@@ -233,6 +233,7 @@ type problem struct {
 	relax         float64
 	rho           float64 // unbalanced penalty; 0 when balanced
 	product       bool    // unbalanced with reference a (x) b (transport)
+	symmetric     bool    // balanced transport of a measure to itself
 	lambda        float64 // rho / (rho + eps); 1 when balanced
 	rawMass       float64 // mass of b before normalisation
 	refMass       float64 // total mass Z of the kernel (unbalanced only)

@@ -45,8 +45,8 @@ type scalingIter struct {
 // newScalingIter starts from the potentials, or returns nil when they do not
 // fit the scaling range.
 func newScalingIter(p *problem, lv *level, eps float64, pot *potentials) *scalingIter {
-	if p.product {
-		return nil // the a (x) b reference is implemented in the log domain only
+	if p.product || p.symmetric {
+		return nil // the a (x) b reference and the symmetric step are in the log domain only
 	}
 	K := len(lv.a)
 	st := &scalingIter{p: p, lv: lv, eps: eps, lam: p.lambdaAt(eps), k: NewKernel(lv.rows, lv.cols, lv.dx, lv.dy, eps, initialCutoff)}

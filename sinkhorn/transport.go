@@ -4,6 +4,7 @@ import (
 	"barygrid/internal/parallel"
 	"fmt"
 	"math"
+	"slices"
 	"time"
 
 	"barygrid/grid"
@@ -61,6 +62,8 @@ func transport(base *problem, a, b []float64, rho float64) (*TransportResult, er
 		relax: base.relax, a: [][]float64{a}, target: b, w: []float64{1}, lambda: 1}
 	if rho > 0 {
 		p.rho, p.lambda, p.product = rho, rho/(rho+p.eps), true
+	} else {
+		p.symmetric = slices.Equal(a, b)
 	}
 	if err := p.checkLimits(); err != nil {
 		return nil, err
