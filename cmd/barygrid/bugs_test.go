@@ -2,6 +2,7 @@ package main
 
 import (
 	"encoding/json"
+	"fmt"
 	"math"
 	"os"
 	"path/filepath"
@@ -170,5 +171,43 @@ func TestBarycenterMaps(t *testing.T) {
 	// (9 + 9 + 0)/3 + (7.111 + 0.444 + 11.111)/3 = 6 + 6.222.
 	if want := 6 + 56.0/9; math.Abs(r.Spread-want) > 0.02*want {
 		t.Errorf("spread %g, want %g", r.Spread, want)
+	}
+}
+
+// gauss --stream averages JSON-line fits: sampled (one pass, constant
+// memory) lands near the fixed point on the same stream, and standard input
+// cannot be read twice.
+func TestGaussStream(t *testing.T) {
+	dir := t.TempDir()
+	p := filepath.Join(dir, "fits.jsonl")
+	var b strings.Builder
+	for i := 0; i < 400; i++ {
+		a := 1 + float64(i%7)/3
+		fmt.Fprintf(&b, "{\"mean\": [%g, %g], \"cov\": [[%g, 0.2], [0.2, %g]]}\n", float64(i%5), float64(i%3), a, 3-a/2)
+	}
+	os.WriteFile(p, []byte(b.String()), 0o644)
+	get := func(alg string) []float64 {
+		t.Helper()
+		out := filepath.Join(dir, alg+".json")
+		code, _, errs := runCLI(t, "gauss", "--stream", p, "--algorithm", alg, "--params", out)
+		if code != 0 {
+			t.Fatalf("%s: exit %d: %s", alg, code, errs)
+		}
+		var r struct {
+			Mean []float64   `json:"mean"`
+			Cov  [][]float64 `json:"covariance"`
+		}
+		raw, _ := os.ReadFile(out)
+		json.Unmarshal(raw, &r)
+		return []float64{r.Mean[0], r.Mean[1], r.Cov[0][0], r.Cov[0][1], r.Cov[1][1]}
+	}
+	fp, sa := get("fixed-point"), get("sampled")
+	for i := range fp {
+		if math.Abs(fp[i]-sa[i]) > 0.01 {
+			t.Errorf("entry %d: sampled %g, fixed point %g", i, sa[i], fp[i])
+		}
+	}
+	if code, _, errs := runCLI(t, "gauss", "--stream", "-", "--algorithm", "sampled", "--passes", "2"); code != 2 {
+		t.Errorf("two passes over standard input: exit %d (%s), want 2", code, errs)
 	}
 }

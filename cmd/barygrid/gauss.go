@@ -3,12 +3,15 @@ package main
 import (
 	"barygrid/ensemble"
 	"barygrid/internal/parallel"
+	"barygrid/io/gaussfile"
 	"barygrid/render"
 	"barygrid/report"
 	"encoding/json"
 	"fmt"
+	"gonum.org/v1/gonum/mat"
 	"image/png"
 	"io"
+	"math"
 	"os"
 	"path/filepath"
 	"strings"
@@ -89,6 +92,7 @@ func gaussCommand() *cli.Command {
 		&cli.IntFlag{Name: "passes", DefaultText: "10", Usage: "sampled: passes over the fits"},
 		&cli.IntFlag{Name: "fits-per-step", DefaultText: "1", Usage: "sampled: fits drawn per step"},
 		&cli.Uint64Flag{Name: "seed", Value: 1, Usage: "sampled: random seed (the same seed gives the same result)"},
+		&cli.StringFlag{Name: "stream", Usage: "read fits from `FILE` (- for standard input) as JSON lines, one {\"mean\": [...], \"cov\": [[...]], \"weight\": w} per line, in constant memory with --algorithm sampled (--passes reads the file again; default one pass), or all in memory with the other algorithms"},
 		&cli.BoolFlag{Name: "pixel-correction", Usage: "remove each pixel's own spread from the fitted covariances (dx^2/12 per axis, Sheppard's correction)"},
 		&cli.StringFlag{Name: "out", Usage: "render the barycenter Gaussian on the inputs' grid to `FILE`"},
 		&cli.StringFlag{Name: "params", Usage: "write the barycenter parameters and solver figures to `FILE.json`"},
@@ -102,6 +106,12 @@ func gaussCommand() *cli.Command {
 		Flags:     flags,
 		Action: func(c *cli.Context) error {
 			files := c.Args().Slice()
+			if c.String("stream") != "" {
+				if len(files) > 0 {
+					return usagef("gauss: give FILE... or --stream, not both")
+				}
+				return gaussStream(c)
+			}
 			if len(files) == 0 {
 				return usagef("gauss: no input files")
 			}
@@ -266,4 +276,80 @@ func loadFieldsParallel(c *cli.Context, files []string) ([]*grid.Field, error) {
 		}
 	}
 	return fs, nil
+}
+
+// gaussStream averages the fits of --stream.
+func gaussStream(c *cli.Context) error {
+	path, params := c.String("stream"), c.String("params")
+	if err := checkOutputs(c.Bool("force"), params); err != nil {
+		return err
+	}
+	open := func() (gaussfit.Source, error) {
+		if path == "-" {
+			return gaussfile.NewLineSource(os.Stdin, "standard input"), nil
+		}
+		f, err := os.Open(path)
+		if err != nil {
+			return nil, fmt.Errorf("%s: %v", path, unwrapErr(err))
+		}
+		// Closed when the process ends; a pass reads it to the end.
+		return gaussfile.NewLineSource(f, path), nil
+	}
+	var p report.Gaussian
+	switch alg := c.String("algorithm"); alg {
+	case "sampled":
+		passes := c.Int("passes")
+		if passes == 0 {
+			passes = 1
+		}
+		if path == "-" && passes > 1 {
+			return usagef("--stream -: standard input can be read once; give a file for --passes %d", passes)
+		}
+		r, err := gaussfit.Stream(open, gaussfit.StreamSettings{Passes: passes, Step: c.Float64("step-size")})
+		if err != nil {
+			return err
+		}
+		p = report.Gaussian{Mean: r.Barycenter.Mean, Covariance: report.Rows(r.Barycenter.Cov), Solver: "sampled (streamed)",
+			Iterations: r.Fits * r.Passes, Converged: true, Seconds: r.Elapsed.Seconds(), Inputs: r.Fits, Objective: []float64{r.Objective}}
+	case "fixed-point", "gradient-descent":
+		src, err := open()
+		if err != nil {
+			return err
+		}
+		gs, ws, err := gaussfile.ReadAll(src)
+		if err != nil {
+			return err
+		}
+		s := gaussfit.Settings{Solver: gaussfit.FixedPoint, Weights: ws, Tol: c.Float64("tol"), MaxIter: c.Int("max-iter"), Step: c.Float64("step-size")}
+		if alg == "gradient-descent" {
+			s.Solver = gaussfit.Gradient
+		}
+		r, err := gaussfit.Barycenter(gs, s)
+		if err != nil {
+			return err
+		}
+		p = report.NewGaussian(r, alg, len(gs))
+		var ob float64
+		var wsum float64
+		for i, g := range gs {
+			ob += ws[i] * gaussfit.W2Sq(g, r.Barycenter)
+			wsum += ws[i]
+		}
+		p.Objective = []float64{ob / wsum}
+	default:
+		return usagef("--algorithm: want fixed-point, gradient-descent or sampled, got %q", alg)
+	}
+	if len(p.Mean) == 2 {
+		cov := mat.NewSymDense(2, []float64{p.Covariance[0][0], p.Covariance[0][1], p.Covariance[1][0], p.Covariance[1][1]})
+		e := gaussfit.EllipseOf(gaussfit.Gaussian{Mean: p.Mean, Cov: cov})
+		p.Ellipse = &report.Ellipse{Major: e.Major, Minor: e.Minor, AngleDeg: e.Angle * 180 / math.Pi}
+	}
+	if params != "" {
+		if err := report.WriteJSON(params, c.Bool("force"), p); err != nil {
+			return err
+		}
+	}
+	fmt.Printf("Gaussian barycenter of %d fits (%s), %.2fs; estimated objective %.6g\n", p.Inputs, p.Solver, p.Seconds, p.Objective[0])
+	fmt.Printf("  mean %s\n  covariance %s\n", fmtVec(p.Mean), fmtMat(p.Covariance))
+	return nil
 }
