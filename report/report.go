@@ -83,6 +83,8 @@ type Barycenter struct {
 	Spread float64 `json:"spread,omitempty"`
 	// Maps is the folder the displacement maps went to.
 	Maps string `json:"maps,omitempty"`
+	// CarryOutput is the file of the averaged carried field.
+	CarryOutput string `json:"carry_output,omitempty"`
 }
 
 // NewBarycenter builds the report of a barycenter of the fields (files

@@ -111,6 +111,8 @@ func barycenterCommand() *cli.Command {
 		&cli.StringFlag{Name: "report", Usage: "write a JSON report to `FILE.json`"},
 		&cli.StringFlag{Name: "sheet", Usage: "write a contact sheet PNG (inputs, pixel mean, barycenter, Gaussian ellipses) to `FILE`"},
 		&cli.StringFlag{Name: "maps", Usage: "write where the inputs differ to folder `DIR`: each input's displacement from the barycenter (NAME.displacement.npy, rows x columns x 2: x then y, physical units, and NAME.displacement.png arrows over the barycenter) and the mean displacement length (variability.npy, variability.png with a colour bar); the report gets the spread"},
+		&cli.StringFlag{Name: "carry", Usage: "a second field per input, `A,B,...` in the inputs' order (a second stain, a second variable): each is moved along its input's transport plan into the barycenter's frame and averaged there (needs --carry-out)"},
+		&cli.StringFlag{Name: "carry-out", Usage: "write the averaged carried field to `FILE`"},
 		&cli.BoolFlag{Name: "rank", Usage: "rank the inputs by Sinkhorn divergence to the barycenter and flag outliers (median + 3 scaled MAD)"},
 	)
 	return withUsage(&cli.Command{
@@ -121,8 +123,19 @@ func barycenterCommand() *cli.Command {
 		Action: func(c *cli.Context) error {
 			files := c.Args().Slice()
 			out, reportPath, sheetPath := c.String("out"), c.String("report"), c.String("sheet")
-			if err := checkOutputs(c.Bool("force"), out, reportPath, sheetPath); err != nil {
+			carryOut := c.String("carry-out")
+			if err := checkOutputs(c.Bool("force"), out, reportPath, sheetPath, carryOut); err != nil {
 				return err
+			}
+			var carryFiles []string
+			if v := c.String("carry"); v != "" {
+				carryFiles = strings.Split(v, ",")
+				if len(carryFiles) != len(files) {
+					return usagef("--carry: %d files for %d inputs", len(carryFiles), len(files))
+				}
+				if carryOut == "" {
+					return usagef("--carry needs --carry-out FILE")
+				}
 			}
 			s, err := solverSettings(c)
 			if err != nil {
@@ -160,6 +173,26 @@ func barycenterCommand() *cli.Command {
 					return err
 				}
 				rep.Output, rep.Scaling = out, sc
+			}
+			if carryFiles != nil && r.Status == sinkhorn.Converged {
+				ls, err := loadSettings(c)
+				if err != nil {
+					return err
+				}
+				cs := make([]*grid.Field, len(carryFiles))
+				for i, p := range carryFiles {
+					if cs[i], err = fieldfile.Load(p, ls); err != nil {
+						return err
+					}
+				}
+				carried, err := sinkhorn.Carry(fs, cs, s, r)
+				if err != nil {
+					return err
+				}
+				if _, err := saveField(c, carryOut, carried); err != nil {
+					return err
+				}
+				rep.CarryOutput = carryOut
 			}
 			if dir := c.String("maps"); dir != "" && r.Status == sinkhorn.Converged {
 				v, err := sinkhorn.Maps(fs, s, r)

@@ -211,3 +211,33 @@ func TestGaussStream(t *testing.T) {
 		t.Errorf("two passes over standard input: exit %d (%s), want 2", code, errs)
 	}
 }
+
+// --carry moves each input's second field along its plan and averages it:
+// for shifted copies of one pair the result is the pair's second field
+// shifted by the mean shift (see sinkhorn.TestCarryShiftedPair).
+func TestBarycenterCarry(t *testing.T) {
+	dir := t.TempDir()
+	var files, carry []string
+	for i, s := range [][2]float64{{0, 0}, {6, 2}, {3, 4}} {
+		a, b := filepath.Join(dir, fmt.Sprintf("n%d.npy", i)), filepath.Join(dir, fmt.Sprintf("p%d.npy", i))
+		fieldfile.Save(a, blob(30, 30, 10+s[0], 12+s[1], 6), fieldfile.SaveSettings{})
+		fieldfile.Save(b, blob(30, 30, 12+s[0], 12+s[1], 2), fieldfile.SaveSettings{})
+		files, carry = append(files, a), append(carry, b)
+	}
+	out := filepath.Join(dir, "carried.npy")
+	code, _, errs := runCLI(t, append([]string{"barycenter", "--epsilon", "0.25", "--carry", strings.Join(carry, ","), "--carry-out", out}, files...)...)
+	if code != 0 {
+		t.Fatalf("exit %d: %s", code, errs)
+	}
+	f, err := fieldfile.Load(out, fieldfile.LoadSettings{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	m := grid.ComputeMoments(f)
+	if math.Abs(m.Mean[0]-15) > 0.1 || math.Abs(m.Mean[1]-14) > 0.1 {
+		t.Errorf("carried centroid %v, want (15, 14)", m.Mean)
+	}
+	if code, _, _ := runCLI(t, append([]string{"barycenter", "--carry", carry[0], "--carry-out", out + "2"}, files...)...); code != 2 {
+		t.Errorf("one carried file for three inputs: exit %d, want 2", code)
+	}
+}
