@@ -21,6 +21,19 @@ type Input struct {
 	// Weight is normalised (the weights sum to 1).
 	Weight   float64    `json:"weight"`
 	Centroid [2]float64 `json:"centroid"`
+	// Pose relates the input to the template when the inputs were posed.
+	Pose *Pose `json:"pose,omitempty"`
+}
+
+// Pose is one input's transform (pose.Transform): the input is the
+// template mirrored across its principal axis when flipped, turned by
+// angle_deg (counter-clockwise as displayed, rows pointing down) and moved
+// by -shift.
+type Pose struct {
+	AngleDeg     float64    `json:"angle_deg"`
+	Flipped      bool       `json:"flipped"`
+	Shift        [2]float64 `json:"shift"`
+	LostFraction float64    `json:"lost_fraction,omitempty"`
 }
 
 // Stage is one epsilon stage of a solve (sinkhorn.Stage).
@@ -83,6 +96,8 @@ type Barycenter struct {
 	Spread float64 `json:"spread,omitempty"`
 	// Maps is the folder the displacement maps went to.
 	Maps string `json:"maps,omitempty"`
+	// PoseMode is how the inputs were posed (none when absent).
+	PoseMode string `json:"pose_mode,omitempty"`
 	// CarryOutput is the file of the averaged carried field.
 	CarryOutput string `json:"carry_output,omitempty"`
 }

@@ -4,6 +4,7 @@ import (
 	"barygrid/ensemble"
 	"barygrid/io/imagefile"
 	"barygrid/io/npy"
+	"barygrid/pose"
 	"barygrid/render"
 	"barygrid/report"
 	"errors"
@@ -111,6 +112,7 @@ func barycenterCommand() *cli.Command {
 		&cli.StringFlag{Name: "report", Usage: "write a JSON report to `FILE.json`"},
 		&cli.StringFlag{Name: "sheet", Usage: "write a contact sheet PNG (inputs, pixel mean, barycenter, Gaussian ellipses) to `FILE`"},
 		&cli.StringFlag{Name: "maps", Usage: "write where the inputs differ to folder `DIR`: each input's displacement from the barycenter (NAME.displacement.npy, rows x columns x 2: x then y, physical units, and NAME.displacement.png arrows over the barycenter) and the mean displacement length (variability.npy, variability.png with a colour bar); the report gets the spread"},
+		&cli.StringFlag{Name: "pose", Value: "none", Usage: "bring the inputs into one pose first: none, shift (centroids together), rotate (also turn them so their principal axes and shapes agree) or rotate-flip (also allow mirror images); the barycenter is returned in the inputs' mean pose and the report lists each input's angle"},
 		&cli.StringFlag{Name: "carry", Usage: "a second field per input, `A,B,...` in the inputs' order (a second stain, a second variable): each is moved along its input's transport plan into the barycenter's frame and averaged there (needs --carry-out)"},
 		&cli.StringFlag{Name: "carry-out", Usage: "write the averaged carried field to `FILE`"},
 		&cli.BoolFlag{Name: "rank", Usage: "rank the inputs by Sinkhorn divergence to the barycenter and flag outliers (median + 3 scaled MAD)"},
@@ -148,7 +150,33 @@ func barycenterCommand() *cli.Command {
 			if s.Weights, err = parseWeights(c.String("weights"), len(fs)); err != nil {
 				return err
 			}
-			r, err := sinkhorn.Barycenter(fs, s)
+			mode, err := pose.ParseMode(c.String("pose"))
+			if err != nil {
+				return usagef("--pose: want none, shift, rotate or rotate-flip, got %q", c.String("pose"))
+			}
+			if mode != pose.None && carryFiles != nil {
+				return usagef("--carry with --pose is not supported: the carried fields would need the same turns")
+			}
+			var (
+				r     *sinkhorn.Result
+				posed *pose.Result
+			)
+			solveFields := fs
+			if mode == pose.None {
+				r, err = sinkhorn.Barycenter(fs, s)
+			} else {
+				ps := s
+				ps.Progress = nil
+				posed, err = pose.Normalize(fs, pose.Settings{Mode: mode, Solver: ps})
+				if err == nil {
+					// The report and the output show the template in the mean
+					// pose; maps and ranking use the posed inputs and the
+					// template in their common frame.
+					rr := *posed.Barycenter
+					rr.Barycenter = posed.Template
+					r, solveFields = &rr, posed.Posed
+				}
+			}
 			if s.Progress != nil {
 				fmt.Fprint(os.Stderr, "\r\033[K")
 			}
@@ -156,8 +184,19 @@ func barycenterCommand() *cli.Command {
 				return maskError(c, err)
 			}
 			rep := report.NewBarycenter(files, fs, s.Weights, s, r)
+			if posed != nil {
+				for i, t := range posed.Transforms {
+					rep.Inputs[i].Pose = &report.Pose{AngleDeg: t.AngleDeg, Flipped: t.Flipped, Shift: t.Shift, LostFraction: t.Lost}
+				}
+				rep.PoseMode = mode.String()
+			}
+			frame := r
+			if posed != nil {
+				fr := *posed.Barycenter
+				frame = &fr
+			}
 			if c.Bool("rank") && r.Status == sinkhorn.Converged {
-				ranks, err := rankInputs(files, fs, r.Barycenter, s)
+				ranks, err := rankInputs(files, solveFields, frame.Barycenter, s)
 				if err != nil {
 					return err
 				}
@@ -195,11 +234,11 @@ func barycenterCommand() *cli.Command {
 				rep.CarryOutput = carryOut
 			}
 			if dir := c.String("maps"); dir != "" && r.Status == sinkhorn.Converged {
-				v, err := sinkhorn.Maps(fs, s, r)
+				v, err := sinkhorn.Maps(solveFields, s, frame)
 				if err != nil {
 					return err
 				}
-				if err := writeMaps(dir, c.Bool("force"), files, r.Barycenter, v); err != nil {
+				if err := writeMaps(dir, c.Bool("force"), files, frame.Barycenter, v); err != nil {
 					return err
 				}
 				rep.Spread, rep.Maps = v.Spread, dir

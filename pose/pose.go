@@ -1,0 +1,391 @@
+// Package pose brings fields into one pose before averaging, as iterative
+// template building does: cells that lie at any angle are turned so that
+// their principal axes agree, the ambiguous half-turn (and, when allowed, a
+// reflection) is chosen by the Sinkhorn divergence to the current template,
+// for a few rounds, and the template is returned in the mean pose of the
+// inputs.
+//
+// Resampling splats each pixel's mass bilinearly onto the four pixels
+// around its new position, which conserves mass exactly (except for mass
+// carried off the grid, reported).
+//
+// Angles are counter-clockwise as the field is displayed (rows pointing
+// down), in degrees.
+package pose
+
+import (
+	"errors"
+	"fmt"
+	"math"
+
+	"barygrid/gaussfit"
+	"barygrid/grid"
+	"barygrid/internal/parallel"
+	"barygrid/sinkhorn"
+)
+
+// Mode selects what may change.
+type Mode int
+
+const (
+	// None leaves the inputs as they are.
+	None Mode = iota
+	// Shift moves each input's centroid to the inputs' mean centroid.
+	Shift
+	// Rotate also turns each input about its centroid.
+	Rotate
+	// RotateFlip also allows a mirror image.
+	RotateFlip
+)
+
+func (m Mode) String() string {
+	return [...]string{"none", "shift", "rotate", "rotate-flip"}[m]
+}
+
+// ParseMode reads none, shift, rotate or rotate-flip.
+func ParseMode(s string) (Mode, error) {
+	for m := None; m <= RotateFlip; m++ {
+		if m.String() == s {
+			return m, nil
+		}
+	}
+	return None, fmt.Errorf("pose: unknown mode %q (want none, shift, rotate or rotate-flip)", s)
+}
+
+// Settings of Normalize. The zero value leaves the inputs alone.
+type Settings struct {
+	Mode Mode
+	// Rounds of choosing each input's half-turn and reflection against the
+	// template; zero means 2.
+	Rounds int
+	// Solver settings of the templates and divergences (Weights are used
+	// for the templates).
+	Solver sinkhorn.Settings
+}
+
+// Transform relates one input to the template: the input is the template
+// mirrored across the template's principal axis (when Flipped), turned by
+// AngleDeg about its centre and moved by -Shift. Posing undid that.
+type Transform struct {
+	AngleDeg float64
+	Flipped  bool
+	// Shift is the centroid's displacement (physical units, x then y).
+	Shift [2]float64
+	// Lost is the fraction of mass carried off the grid by the move.
+	Lost float64
+}
+
+// Result of Normalize.
+type Result struct {
+	// Posed are the inputs in the common pose (the template's frame).
+	Posed      []*grid.Field
+	Transforms []Transform
+	// Template is the barycenter of the posed inputs, turned and moved into
+	// the mean pose of the inputs.
+	Template *grid.Field
+	// Canonical is the same barycenter in the canonical frame (principal
+	// axis along x, at the grid's centre), as the rounds built it.
+	Canonical *grid.Field
+	// Divergences of each input to the final canonical template.
+	Divergences []float64
+	// Barycenter is the last solve's result (status, iterations).
+	Barycenter *sinkhorn.Result
+}
+
+// Normalize poses the fields (one shape, one pixel size) and returns them
+// with the template.
+func Normalize(fs []*grid.Field, s Settings) (*Result, error) {
+	if len(fs) == 0 {
+		return nil, errors.New("pose: no fields")
+	}
+	if err := grid.SameShape(fs, nil); err != nil {
+		return nil, err
+	}
+	rounds := s.Rounds
+	if rounds == 0 {
+		rounds = 2
+	}
+	n := len(fs)
+	fits := make([]gaussfit.Gaussian, n)
+	var cx, cy float64
+	for i, f := range fs {
+		g, _, err := gaussfit.Fit(f, gaussfit.FitSettings{})
+		if err != nil {
+			return nil, fmt.Errorf("pose: field %d: %w", i+1, err)
+		}
+		fits[i] = g
+		cx += g.Mean[0] / float64(n)
+		cy += g.Mean[1] / float64(n)
+	}
+	f0 := fs[0]
+	dx, dy := f0.PixelSize()
+	res := &Result{Transforms: make([]Transform, n), Posed: make([]*grid.Field, n)}
+	if s.Mode == None {
+		copy(res.Posed, fs)
+		return finish(res, s)
+	}
+	if s.Mode == Shift {
+		for i, f := range fs {
+			t := Transform{Shift: [2]float64{cx - fits[i].Mean[0], cy - fits[i].Mean[1]}}
+			res.Posed[i], t.Lost = place(f, [2]float64(fits[i].Mean), [2]float64{cx, cy}, 0, false)
+			res.Transforms[i] = t
+		}
+		return finish(res, s)
+	}
+	// Canonical frame: principal axis along x, centroid at the grid's
+	// centre, which keeps turned shapes inside the grid.
+	centre := [2]float64{float64(f0.Cols-1) * dx / 2, float64(f0.Rows-1) * dy / 2}
+	axis := make([]float64, n)
+	for i, g := range fits {
+		axis[i] = displayAngle(gaussfit.EllipseOf(g).Angle)
+	}
+	type choice struct {
+		half bool // an extra half-turn
+		flip bool
+	}
+	chosen := make([]choice, n)
+	// extra refines each input's angle beyond its principal axis: an
+	// asymmetric shape's axis is tilted from its mirror image's.
+	extra := make([]float64, n)
+	canon := func(i int, c choice) (*grid.Field, float64) {
+		return place(fs[i], [2]float64(fits[i].Mean), centre, angleOf(axis[i], extra[i], c.half), c.flip)
+	}
+	var template *grid.Field
+	var last *sinkhorn.Result
+	for round := 0; round <= rounds; round++ {
+		posed := make([]*grid.Field, n)
+		for i := range fs {
+			posed[i], _ = canon(i, chosen[i])
+		}
+		r, err := sinkhorn.Barycenter(posed, s.Solver)
+		if err != nil {
+			return nil, err
+		}
+		if r.Status != sinkhorn.Converged {
+			return nil, fmt.Errorf("pose: template of round %d did not converge: %s", round+1, r.Message)
+		}
+		template, last = r.Barycenter, r
+		copy(res.Posed, posed)
+		if round == rounds {
+			break
+		}
+		// Each input takes the half-turn and reflection closest to the
+		// template, by the Sinkhorn divergence.
+		var cands []choice
+		for _, flip := range []bool{false, true} {
+			if flip && s.Mode != RotateFlip {
+				continue
+			}
+			for _, half := range []bool{false, true} {
+				cands = append(cands, choice{half, flip})
+			}
+		}
+		ds := make([][]float64, n)
+		errs := make([]error, n)
+		inner := s.Solver
+		inner.Workers, inner.Progress, inner.Weights = 1, nil, nil
+		parallel.For(n, s.Solver.Workers, func(i int) {
+			ds[i] = make([]float64, len(cands))
+			for j, c := range cands {
+				f, _ := canon(i, c)
+				ds[i][j], _, errs[i] = sinkhorn.Divergence(f, template, inner)
+				if errs[i] != nil {
+					return
+				}
+			}
+		})
+		if err := errors.Join(errs...); err != nil {
+			return nil, err
+		}
+		for i := range fs {
+			best := 0
+			for j := range cands {
+				if ds[i][j] < ds[i][best] {
+					best = j
+				}
+			}
+			chosen[i] = cands[best]
+		}
+		// Then each angle by a pattern search on the divergence: steps of
+		// 8 degrees halved down to a quarter degree.
+		parallel.For(n, s.Solver.Workers, func(i int) {
+			div := func(e float64) float64 {
+				f, _ := place(fs[i], [2]float64(fits[i].Mean), centre, angleOf(axis[i], e, chosen[i].half), chosen[i].flip)
+				d, _, err := sinkhorn.Divergence(f, template, inner)
+				if err != nil && errs[i] == nil {
+					errs[i] = err
+				}
+				return d
+			}
+			e := extra[i]
+			de := div(e)
+			for h := 8.0; h >= 0.25; {
+				lo, hi := div(e-h), div(e+h)
+				switch {
+				case lo < de && lo <= hi:
+					e, de = e-h, lo
+				case hi < de:
+					e, de = e+h, hi
+				default:
+					h /= 2
+				}
+			}
+			extra[i] = e
+		})
+		if err := errors.Join(errs...); err != nil {
+			return nil, err
+		}
+	}
+	// The mean pose: the handedness of the majority, and the circular mean
+	// of the orientations of the inputs of that handedness (the others'
+	// angles are read after mirroring, so they do not average with them).
+	flips := 0
+	for i := range fs {
+		if chosen[i].flip {
+			flips++
+		}
+	}
+	flipMean := 2*flips > n
+	var sx, sy float64
+	ang := make([]float64, n)
+	for i := range fs {
+		ang[i] = angleOf(axis[i], extra[i], chosen[i].half)
+		if chosen[i].flip == flipMean {
+			sx += math.Cos(ang[i] * math.Pi / 180)
+			sy += math.Sin(ang[i] * math.Pi / 180)
+		}
+	}
+	mean := math.Atan2(sy, sx) * 180 / math.Pi
+	for i := range fs {
+		t := Transform{AngleDeg: wrap(ang[i] - mean), Flipped: chosen[i].flip != flipMean}
+		t.Shift = [2]float64{centre[0] - fits[i].Mean[0], centre[1] - fits[i].Mean[1]}
+		_, t.Lost = canon(i, chosen[i])
+		res.Transforms[i] = t
+	}
+	res.Canonical, res.Barycenter = template, last
+	// Back into the mean pose: mirror if most inputs were mirrored, turn by
+	// the mean angle, centre on the mean centroid.
+	tm, _ := grid.Normalize(template)
+	back, _ := placeInverse(tm, centre, [2]float64{cx, cy}, mean, flipMean)
+	res.Template = back
+	res.Divergences = make([]float64, n)
+	inner := s.Solver
+	inner.Workers, inner.Progress, inner.Weights = 1, nil, nil
+	errs := make([]error, n)
+	parallel.For(n, s.Solver.Workers, func(i int) {
+		res.Divergences[i], _, errs[i] = sinkhorn.Divergence(res.Posed[i], template, inner)
+	})
+	return res, errors.Join(errs...)
+}
+
+// finish computes the template of already posed inputs (none, shift).
+func finish(res *Result, s Settings) (*Result, error) {
+	r, err := sinkhorn.Barycenter(res.Posed, s.Solver)
+	if err != nil {
+		return nil, err
+	}
+	if r.Status != sinkhorn.Converged {
+		return nil, fmt.Errorf("pose: template did not converge: %s", r.Message)
+	}
+	res.Template, res.Canonical, res.Barycenter = r.Barycenter, r.Barycenter, r
+	return res, nil
+}
+
+// angleOf is an input's orientation: its principal axis, refined, with an
+// extra half-turn.
+func angleOf(axis, extra float64, half bool) float64 {
+	a := axis + extra
+	if half {
+		a += 180
+	}
+	return a
+}
+
+// displayAngle converts the x-axis angle of the y-down pixel frame (radians)
+// into degrees counter-clockwise as displayed.
+func displayAngle(rad float64) float64 { return wrap(-rad * 180 / math.Pi) }
+
+// wrap returns an angle in (-180, 180].
+func wrap(a float64) float64 {
+	a = math.Mod(a, 360)
+	if a > 180 {
+		a -= 360
+	} else if a <= -180 {
+		a += 360
+	}
+	return a
+}
+
+// place moves f so that the point from lands on to, after mirroring
+// left-right about from (flip) and turning by -angle degrees (as
+// displayed): the shape's orientation angle becomes 0. It returns the moved
+// field and the fraction of mass that left the grid.
+func place(f *grid.Field, from, to [2]float64, angle float64, flip bool) (*grid.Field, float64) {
+	// Display frame: u = x, v = -y. Turning by -angle counter-clockwise is
+	// turning by +angle clockwise.
+	th := -angle * math.Pi / 180
+	c, s := math.Cos(th), math.Sin(th)
+	return splat(f, func(x, y float64) (float64, float64) {
+		u, v := x-from[0], -(y - from[1])
+		if flip {
+			// Mirror across the shape's own axis after turning: the same as
+			// mirroring u before turning by the opposite angle.
+			u2, v2 := c*u-s*v, s*u+c*v
+			return to[0] + u2, to[1] + v2
+		}
+		u2, v2 := c*u-s*v, s*u+c*v
+		return to[0] + u2, to[1] - v2
+	})
+}
+
+// placeInverse undoes place: from the canonical frame at from, mirror
+// (flip), turn by +angle and move to to.
+func placeInverse(f *grid.Field, from, to [2]float64, angle float64, flip bool) (*grid.Field, float64) {
+	th := angle * math.Pi / 180
+	c, s := math.Cos(th), math.Sin(th)
+	return splat(f, func(x, y float64) (float64, float64) {
+		u, v := x-from[0], -(y - from[1])
+		if flip {
+			v = -v
+		}
+		u2, v2 := c*u-s*v, s*u+c*v
+		return to[0] + u2, to[1] - v2
+	})
+}
+
+// splat moves every pixel's mass to the position T gives its centre
+// (physical units) and shares it bilinearly among the four pixels around
+// it: the moved field has the same mass, less what falls off the grid.
+func splat(f *grid.Field, T func(x, y float64) (float64, float64)) (*grid.Field, float64) {
+	dx, dy := f.PixelSize()
+	out := f.Like()
+	var total, kept float64
+	for r := 0; r < f.Rows; r++ {
+		for c := 0; c < f.Cols; c++ {
+			m := f.Data[r*f.Cols+c]
+			if m == 0 {
+				continue
+			}
+			total += m
+			x, y := T(float64(c)*dx, float64(r)*dy)
+			px, py := x/dx, y/dy
+			c0, r0 := int(math.Floor(px)), int(math.Floor(py))
+			tx, ty := px-float64(c0), py-float64(r0)
+			for _, q := range [4]struct {
+				r, c int
+				w    float64
+			}{{r0, c0, (1 - tx) * (1 - ty)}, {r0, c0 + 1, tx * (1 - ty)}, {r0 + 1, c0, (1 - tx) * ty}, {r0 + 1, c0 + 1, tx * ty}} {
+				if q.r < 0 || q.c < 0 || q.r >= f.Rows || q.c >= f.Cols || q.w == 0 {
+					continue
+				}
+				out.Data[q.r*f.Cols+q.c] += m * q.w
+				kept += m * q.w
+			}
+		}
+	}
+	lost := 0.0
+	if total > 0 {
+		lost = 1 - kept/total
+	}
+	return out, lost
+}
