@@ -2,6 +2,7 @@ package batch
 
 import (
 	"runtime"
+	"sync"
 
 	"barygrid/internal/parallel"
 )
@@ -38,12 +39,19 @@ func Run(groups []Group, job Job, s RunSettings) []Row {
 		}
 	}
 	rows := make([]Row, len(groups))
+	var mu sync.Mutex
 	parallel.For(len(groups), jobs, func(i int) {
 		jb := job
 		jb.Solver.Workers = max(1, cpus/jobs)
-		rows[i] = Process(groups[i], jb)
+		row := Process(groups[i], jb)
+		mu.Lock()
+		rows[i] = row
+		// The results page shows progress during a long run; a page that
+		// cannot be written is not a group's failure.
+		_ = WriteIndex(job.Out, rows)
+		mu.Unlock()
 		if s.Done != nil {
-			s.Done(rows[i])
+			s.Done(row)
 		}
 	})
 	return rows

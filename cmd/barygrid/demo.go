@@ -65,6 +65,9 @@ func demoCommand() *cli.Command {
 			if err := batch.WriteSummary(filepath.Join(dir, "summary.csv"), rows); err != nil {
 				return err
 			}
+			if err := batch.WriteIndex(dir, rows); err != nil {
+				return err
+			}
 			fmt.Printf("summary: %s (the same as: barygrid batch --out %s %s, with each set's --pixel-size)\n",
 				filepath.Join(dir, "summary.csv"), dir, filepath.Join(dir, "inputs"))
 			return nil
