@@ -182,13 +182,25 @@ func Normalize(fs []*grid.Field, s Settings) (*Result, error) {
 		}
 		ds := make([][]float64, n)
 		errs := make([]error, n)
+		// The search compares poses, not templates: a smoother epsilon
+		// (four times the template's) and a looser tolerance tell the
+		// candidates apart at a fraction of the cost.
 		inner := s.Solver
 		inner.Workers, inner.Progress, inner.Weights = 1, nil, nil
+		inner.Epsilon = 4 * last.Epsilon
+		inner.Tol = math.Max(inner.Tol, 1e-4)
+		// and, on grids of 64 pixels a side or more, 2 x 2 block sums:
+		// a pose differs over the whole shape, not in its finest detail.
+		coarse := func(f *grid.Field) *grid.Field { return f }
+		if min(f0.Rows, f0.Cols) >= 64 {
+			coarse = halve
+		}
+		ctemplate := coarse(template)
 		parallel.For(n, s.Solver.Workers, func(i int) {
 			ds[i] = make([]float64, len(cands))
 			for j, c := range cands {
 				f, _ := canon(i, c)
-				ds[i][j], _, errs[i] = sinkhorn.Divergence(f, template, inner)
+				ds[i][j], _, errs[i] = sinkhorn.Divergence(coarse(f), ctemplate, inner)
 				if errs[i] != nil {
 					return
 				}
@@ -207,11 +219,11 @@ func Normalize(fs []*grid.Field, s Settings) (*Result, error) {
 			chosen[i] = cands[best]
 		}
 		// Then each angle by a pattern search on the divergence: steps of
-		// 8 degrees halved down to a quarter degree.
+		// 4 degrees halved down to half a degree.
 		parallel.For(n, s.Solver.Workers, func(i int) {
 			div := func(e float64) float64 {
 				f, _ := place(fs[i], [2]float64(fits[i].Mean), centre, angleOf(axis[i], e, chosen[i].half), chosen[i].flip)
-				d, _, err := sinkhorn.Divergence(f, template, inner)
+				d, _, err := sinkhorn.Divergence(coarse(f), ctemplate, inner)
 				if err != nil && errs[i] == nil {
 					errs[i] = err
 				}
@@ -219,7 +231,7 @@ func Normalize(fs []*grid.Field, s Settings) (*Result, error) {
 			}
 			e := extra[i]
 			de := div(e)
-			for h := 8.0; h >= 0.25; {
+			for h := 4.0; h >= 0.5; {
 				lo, hi := div(e-h), div(e+h)
 				switch {
 				case lo < de && lo <= hi:
@@ -388,4 +400,19 @@ func splat(f *grid.Field, T func(x, y float64) (float64, float64)) (*grid.Field,
 		lost = 1 - kept/total
 	}
 	return out, lost
+}
+
+// halve sums 2 x 2 blocks (an odd last row or column alone), doubling the
+// pixel size: the same measure on a coarser grid.
+func halve(f *grid.Field) *grid.Field {
+	rows, cols := (f.Rows+1)/2, (f.Cols+1)/2
+	g := grid.New(rows, cols)
+	for r := 0; r < f.Rows; r++ {
+		for c := 0; c < f.Cols; c++ {
+			g.Data[(r/2)*cols+c/2] += f.Data[r*f.Cols+c]
+		}
+	}
+	dx, dy := f.PixelSize()
+	g.Dx, g.Dy, g.Unit = 2*dx, 2*dy, f.Unit
+	return g
 }
