@@ -155,7 +155,7 @@ type Input struct {
 	File   string  `json:"file"`
 	SHA256 string  `json:"sha256"`
 	Mass   float64 `json:"mass,omitempty"`
-	Weight float64 `json:"weight"`
+	Weight float64 `json:"weight_given"` // as the manifest gives it; report.Input.Weight is normalised
 }
 
 type Row struct {

@@ -175,7 +175,8 @@ func quantile(F []float64, p float64) float64 {
 // In one dimension the W2 barycenter's quantile function is the weighted
 // mean of the inputs' quantile functions (standard fact; e.g. Agueh &
 // Carlier 2011). Compare the W1 distance between the entropic barycenter and
-// that reference, which for 1-D is the L1 distance of quantile functions.
+// that reference, which for 1-D is the L1 distance of quantile functions,
+// at the default epsilon (one squared pixel): within 0.1 px.
 func TestOneDimensionQuantiles(t *testing.T) {
 	const n = 120
 	a := gaussField(1, n, 30, 0, 16)
@@ -185,7 +186,7 @@ func TestOneDimensionQuantiles(t *testing.T) {
 		b.Data[c] = math.Exp(-(x-70)*(x-70)/18) + 0.6*math.Exp(-(x-95)*(x-95)/8)
 	}
 	w := []float64{0.35, 0.65}
-	r, err := Barycenter([]*grid.Field{a, b}, Settings{Epsilon: 0.5, Weights: w, Tol: 1e-8})
+	r, err := Barycenter([]*grid.Field{a, b}, Settings{Weights: w, Tol: 1e-8})
 	if err != nil || r.Status != Converged {
 		t.Fatal(err, r.Message)
 	}
@@ -199,6 +200,7 @@ func TestOneDimensionQuantiles(t *testing.T) {
 		want := w[0]*quantile(Fa, p) + w[1]*quantile(Fb, p)
 		w1 += math.Abs(quantile(Fr, p)-want) / m
 	}
+	t.Logf("W1 to the quantile-mean barycenter %.4f px", w1)
 	if w1 > 0.1 {
 		t.Errorf("W1 to the quantile-mean barycenter = %.3f px, want < 0.1", w1)
 	}
