@@ -25,7 +25,7 @@ func benchField(n int) []float64 {
 func BenchmarkKernel(b *testing.B) {
 	for _, eps := range []float64{1, 4, 16} {
 		b.Run(fmt.Sprintf("scaling/eps=%g", eps), func(b *testing.B) {
-			k := NewKernel(128, 128, 1, 1, eps, initialCutoff)
+			k := newBandKernel(128, 128, 1, 1, eps, initialCutoff)
 			src := benchField(128)
 			dst, tmp := make([]float64, len(src)), make([]float64, len(src))
 			for b.Loop() {

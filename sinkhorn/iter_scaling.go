@@ -28,14 +28,14 @@ type scalingIter struct {
 	p            *problem
 	lv           *level
 	eps, lam     float64 // epsilon and the KL exponent rho / (rho + eps)
-	k            *Kernel
+	k            *bandKernel
 	u, v, kv, ku [][]float64
 	b, d, kd     []float64
 	tmp          [][]float64 // one per task
 	l            [][]float64 // per chunk: log K u_k at one pixel
 	mode         *massMode   // unbalanced barycenters only
 	resid        []float64
-	full         *Kernel     // untruncated, for verify (built at the first check)
+	full         *bandKernel // untruncated, for verify (built at the first check)
 	fullBuf      [][]float64 // scratch for verify
 	checks       []float64   // per input: truncation error, untruncated residual
 	dres         float64
@@ -49,7 +49,7 @@ func newScalingIter(p *problem, lv *level, eps float64, pot *potentials) *scalin
 		return nil // the a (x) b reference and the symmetric step are in the log domain only
 	}
 	K := len(lv.a)
-	st := &scalingIter{p: p, lv: lv, eps: eps, lam: p.lambdaAt(eps), k: NewKernel(lv.rows, lv.cols, lv.dx, lv.dy, eps, initialCutoff)}
+	st := &scalingIter{p: p, lv: lv, eps: eps, lam: p.lambdaAt(eps), k: newBandKernel(lv.rows, lv.cols, lv.dx, lv.dy, eps, initialCutoff)}
 	alloc := func() []float64 { return make([]float64, lv.n) }
 	expOf := func(x []float64) []float64 {
 		out := alloc()
@@ -309,7 +309,7 @@ func (st *scalingIter) verify(r, tol float64) (float64, bool) {
 	}
 	K := len(lv.a)
 	if st.full == nil {
-		st.full = NewKernel(lv.rows, lv.cols, lv.dx, lv.dy, st.eps, 0)
+		st.full = newBandKernel(lv.rows, lv.cols, lv.dx, lv.dy, st.eps, 0)
 		st.checks = make([]float64, 2*K)
 		for range K {
 			st.fullBuf = append(st.fullBuf, make([]float64, lv.n))
@@ -351,6 +351,6 @@ func (st *scalingIter) widen() {
 	if c < 1e-300 {
 		c = 0
 	}
-	st.k = NewKernel(lv.rows, lv.cols, lv.dx, lv.dy, st.eps, c)
+	st.k = newBandKernel(lv.rows, lv.cols, lv.dx, lv.dy, st.eps, c)
 	parallel.For(len(lv.a), st.p.workers, func(k int) { st.k.Apply(st.kv[k], st.v[k], st.tmp[k]) })
 }

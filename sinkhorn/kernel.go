@@ -4,16 +4,18 @@ import (
 	"math"
 )
 
-// Kernel applies the Gibbs kernel K(p, q) = exp(-|p - q|^2 / epsilon) of the
+// bandKernel applies the Gibbs kernel K(p, q) = exp(-|p - q|^2 / epsilon) of the
 // squared Euclidean cost on a rows x cols grid with pixel size (dx, dy). It
 // factorises into a kernel along x and one along y (K f = Ky f Kx^T), both
 // symmetric Toeplitz, so it is stored as two vectors of taps and applied as
 // two 1-D passes: O(rows*cols*(rx+ry)) work, never an N x N matrix.
 //
-// The taps are cut where they fall below Cutoff; Apply's error in any
-// marginal is then at most Cutoff * |f|_1 * |g|_1 for the pairing <g, K f>,
-// a bound the solver checks (and widens the band when needed).
-type Kernel struct {
+// The taps are cut where they fall below Cutoff. The a-priori bound on the
+// error, Cutoff * |f|_1 * |g|_1 for the pairing <g, K f>, is useless when
+// the scalings span 1e+-100, so the solver measures the error against the
+// untruncated kernel instead (scalingIter.verify) and widens the band when
+// it matters.
+type bandKernel struct {
 	Rows, Cols int
 	Dx, Dy     float64
 	Epsilon    float64
@@ -23,10 +25,10 @@ type Kernel struct {
 	rx, ry int
 }
 
-// NewKernel returns the kernel for the given grid and epsilon, truncated at
+// newBandKernel returns the kernel for the given grid and epsilon, truncated at
 // cutoff (0 keeps every tap).
-func NewKernel(rows, cols int, dx, dy, eps, cutoff float64) *Kernel {
-	k := &Kernel{Rows: rows, Cols: cols, Dx: dx, Dy: dy, Epsilon: eps, Cutoff: cutoff}
+func newBandKernel(rows, cols int, dx, dy, eps, cutoff float64) *bandKernel {
+	k := &bandKernel{Rows: rows, Cols: cols, Dx: dx, Dy: dy, Epsilon: eps, Cutoff: cutoff}
 	k.kx, k.rx = taps(cols, dx, eps, cutoff)
 	k.ky, k.ry = taps(rows, dy, eps, cutoff)
 	return k
@@ -51,12 +53,9 @@ func taps(n int, h, eps, cutoff float64) ([]float64, int) {
 	return w, r
 }
 
-// Radius returns the half-widths of the band along x and y.
-func (k *Kernel) Radius() (rx, ry int) { return k.rx, k.ry }
-
 // Apply writes K src to dst (both rows*cols, row-major), using tmp of the
 // same size as scratch. dst and src must not overlap.
-func (k *Kernel) Apply(dst, src, tmp []float64) {
+func (k *bandKernel) Apply(dst, src, tmp []float64) {
 	// Both passes as contiguous row-axpys: along y, transpose, along x
 	// (as y of the transpose), transpose back. The transposes cost less than
 	// strided dot products along rows, and less than axpys of each row

@@ -41,7 +41,7 @@ func TestSeparableEqualsDense(t *testing.T) {
 		}
 	}
 	got, tmp := make([]float64, rows*cols), make([]float64, rows*cols)
-	NewKernel(rows, cols, dx, dy, eps, 0).Apply(got, f.Data, tmp)
+	newBandKernel(rows, cols, dx, dy, eps, 0).Apply(got, f.Data, tmp)
 	logf := make([]float64, rows*cols)
 	for i, v := range f.Data {
 		logf[i] = math.Log(v)
