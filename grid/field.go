@@ -16,6 +16,10 @@ type Field struct {
 	Dx, Dy float64
 	// Unit names the physical unit of Dx and Dy ("um", "km"); empty means pixels.
 	Unit string
+	// PixelSizeSource says where Dx and Dy came from: "default" (unit
+	// pixels), "flag" (given by the user), or the file's own metadata
+	// ("tiff-resolution", "ome", "geotiff"). Empty means not recorded.
+	PixelSizeSource string
 }
 
 // New returns a zero field of the given shape with unit pixel size.

@@ -286,3 +286,37 @@ func TestBarycenterPose(t *testing.T) {
 		t.Errorf("report lacks the pose: %s", raw[:200])
 	}
 }
+
+// inspect --json states the pixel size and where it came from: the file's
+// OME-XML (written by Python's imaging library), or the flag, with a note
+// of what the flag replaced.
+func TestInspectPixelSizeSource(t *testing.T) {
+	ome := filepath.Join("..", "..", "testdata", "pil_ome.tif")
+	for _, c := range []struct {
+		args   []string
+		source string
+		dx     float64
+		note   bool
+	}{
+		{nil, "ome", 0.65, false},
+		{[]string{"--pixel-size", "0.5", "--unit", "um"}, "flag", 0.5, true},
+	} {
+		code, out, errs := runCLI(t, append(append([]string{"inspect", "--json"}, c.args...), ome)...)
+		if code != 0 {
+			t.Fatalf("exit %d: %s", code, errs)
+		}
+		var rows []struct {
+			PixelSize [2]float64 `json:"pixel_size"`
+			Unit      string     `json:"unit"`
+			Source    string     `json:"pixel_size_source"`
+			Note      string     `json:"note"`
+		}
+		if err := json.Unmarshal([]byte(out), &rows); err != nil || len(rows) != 1 {
+			t.Fatalf("%v %s", err, out)
+		}
+		r := rows[0]
+		if r.Source != c.source || r.PixelSize[0] != c.dx || r.Unit != "um" || (r.Note != "") != c.note {
+			t.Errorf("%v: %+v", c.args, r)
+		}
+	}
+}

@@ -15,16 +15,19 @@ import (
 // fieldSummary is one row of "inspect" (its JSON names are part of the
 // interface other tools read).
 type fieldSummary struct {
-	File       string        `json:"file"`
-	Rows       int           `json:"rows"`
-	Cols       int           `json:"cols"`
-	PixelSize  [2]float64    `json:"pixel_size"`
-	Unit       string        `json:"unit,omitempty"`
-	Mass       float64       `json:"mass"`
-	Min        float64       `json:"min"`
-	Max        float64       `json:"max"`
-	Centroid   [2]float64    `json:"centroid"`
-	Covariance [2][2]float64 `json:"covariance"`
+	File      string     `json:"file"`
+	Rows      int        `json:"rows"`
+	Cols      int        `json:"cols"`
+	PixelSize [2]float64 `json:"pixel_size"`
+	Unit      string     `json:"unit"`
+	// PixelSizeSource: flag, tiff-resolution, ome, geotiff or default.
+	PixelSizeSource string        `json:"pixel_size_source"`
+	Note            string        `json:"note,omitempty"`
+	Mass            float64       `json:"mass"`
+	Min             float64       `json:"min"`
+	Max             float64       `json:"max"`
+	Centroid        [2]float64    `json:"centroid"`
+	Covariance      [2][2]float64 `json:"covariance"`
 }
 
 func summarize(name string, f *grid.Field) fieldSummary {
@@ -32,7 +35,7 @@ func summarize(name string, f *grid.Field) fieldSummary {
 	lo, hi := f.MinMax()
 	dx, dy := f.PixelSize()
 	return fieldSummary{File: name, Rows: f.Rows, Cols: f.Cols, PixelSize: [2]float64{dx, dy}, Unit: f.Unit,
-		Mass: m.Mass, Min: lo, Max: hi, Centroid: m.Mean, Covariance: m.Cov}
+		PixelSizeSource: f.PixelSizeSource, Mass: m.Mass, Min: lo, Max: hi, Centroid: m.Mean, Covariance: m.Cov}
 }
 
 func inspectCommand() *cli.Command {
@@ -61,7 +64,17 @@ func inspectCommand() *cli.Command {
 				if err := f.Validate(); err != nil {
 					return fmt.Errorf("%s: %w", p, err)
 				}
-				rows = append(rows, summarize(p, f))
+				row := summarize(p, f)
+				if s.Dx > 0 {
+					// Say what the flag replaced, when the file has its own.
+					own := s
+					own.Dx, own.Dy, own.Unit = 0, 0, ""
+					if g, err := fieldfile.Load(p, own); err == nil && g.PixelSizeSource != "default" {
+						gx, gy := g.PixelSize()
+						row.Note = fmt.Sprintf("the file says %gx%g %s (%s); --pixel-size overrides it", gx, gy, g.Unit, g.PixelSizeSource)
+					}
+				}
+				rows = append(rows, row)
 			}
 			if c.Bool("json") {
 				enc := json.NewEncoder(os.Stdout)
@@ -69,14 +82,22 @@ func inspectCommand() *cli.Command {
 				return enc.Encode(rows)
 			}
 			tw := tabwriter.NewWriter(os.Stdout, 0, 4, 2, ' ', 0)
-			fmt.Fprintln(tw, "file\tshape\tpixel\tmass\tmin..max\tcentroid (x, y)\tcov xx, xy, yy")
+			fmt.Fprintln(tw, "file\tshape\tpixel (source)\tmass\tmin..max\tcentroid (x, y)\tcov xx, xy, yy")
 			for _, r := range rows {
 				unit := r.Unit
-				fmt.Fprintf(tw, "%s\t%dx%d\t%gx%g%s\t%.6g\t%.4g..%.4g\t(%.4g, %.4g)\t%.4g, %.4g, %.4g\n",
-					r.File, r.Rows, r.Cols, r.PixelSize[0], r.PixelSize[1], unit, r.Mass, r.Min, r.Max,
+				fmt.Fprintf(tw, "%s\t%dx%d\t%gx%g%s (%s)\t%.6g\t%.4g..%.4g\t(%.4g, %.4g)\t%.4g, %.4g, %.4g\n",
+					r.File, r.Rows, r.Cols, r.PixelSize[0], r.PixelSize[1], unit, r.PixelSizeSource, r.Mass, r.Min, r.Max,
 					r.Centroid[0], r.Centroid[1], r.Covariance[0][0], r.Covariance[0][1], r.Covariance[1][1])
 			}
-			return tw.Flush()
+			if err := tw.Flush(); err != nil {
+				return err
+			}
+			for _, r := range rows {
+				if r.Note != "" {
+					fmt.Printf("note: %s: %s\n", r.File, r.Note)
+				}
+			}
+			return nil
 		},
 	})
 }

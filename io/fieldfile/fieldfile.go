@@ -68,7 +68,8 @@ type LoadSettings struct {
 	// BackgroundPercentile is set, the level is that percentile of the field.
 	Background           float64
 	BackgroundPercentile float64
-	// Dx, Dy, Unit override the pixel size; zero keeps 1.
+	// Dx, Dy, Unit override the pixel size; zero keeps the file's own
+	// (TIFF resolution tags, OME-XML, GeoTIFF pixel scale), else 1.
 	Dx, Dy float64
 	Unit   string
 	// SkipValidate keeps fields that are not measures (all zero), for
@@ -145,13 +146,18 @@ func Prepare(f *grid.Field, s LoadSettings) (*grid.Field, error) {
 	}
 	if s.Dx > 0 {
 		f.Dx = s.Dx
+		f.PixelSizeSource = "flag"
+	} else if f.PixelSizeSource == "" {
+		f.PixelSizeSource = "default"
 	}
 	if s.Dy > 0 {
 		f.Dy = s.Dy
 	} else if s.Dx > 0 {
 		f.Dy = s.Dx
 	}
-	f.Unit = s.Unit
+	if s.Unit != "" || s.Dx > 0 {
+		f.Unit = s.Unit // the user's pixel size comes with the user's unit
+	}
 	if s.SkipValidate {
 		return f, nil
 	}

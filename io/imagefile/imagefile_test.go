@@ -3,12 +3,15 @@ package imagefile
 import (
 	"bytes"
 	"encoding/binary"
+	"fmt"
 	"hash/crc32"
 	"image"
 	"image/color"
 	"image/jpeg"
 	"image/png"
+	"math"
 	"os"
+	"os/exec"
 	"path/filepath"
 	"strings"
 	"testing"
@@ -148,6 +151,11 @@ func FuzzRead(f *testing.F) {
 	WriteTIFF(&t8, ramp16(), WriteSettings{EightBit: true})
 	f.Add(t8.Bytes())
 	f.Add(hugePNG(3, 3))
+	for _, name := range []string{"pil_res_cm.tif", "pil_ome.tif", "pil_geotiff.tif"} {
+		if data, err := os.ReadFile(filepath.Join("..", "..", "testdata", name)); err == nil {
+			f.Add(data)
+		}
+	}
 	f.Fuzz(func(t *testing.T, data []byte) {
 		// Decode, encode as 16-bit PNG, decode, encode, decode: the last two
 		// fields are identical (images whose samples are integers are stored
@@ -203,5 +211,75 @@ func TestFixturesFromPIL(t *testing.T) {
 				}
 			}
 		}
+	}
+}
+
+// The pixel size a TIFF carries, from files written by Python's imaging
+// library (testdata/make_image_fixtures.py): resolution tags in inches and
+// in centimetres (TIFF 6.0: pixels per unit), OME-XML physical sizes (the
+// open OME schema), a GeoTIFF pixel scale (OGC GeoTIFF 1.1); a TIFF
+// without any has none.
+func TestTIFFPixelSize(t *testing.T) {
+	for _, c := range []struct {
+		file, unit, source string
+		dx, dy             float64
+	}{
+		{"pil_res_inch.tif", "um", SourceTIFFResolution, 10, 5},
+		{"pil_res_cm.tif", "um", SourceTIFFResolution, 5, 2.5},
+		{"pil_ome.tif", "um", SourceOME, 0.65, 0.8},
+		{"pil_geotiff.tif", "", SourceGeoTIFF, 250, 500},
+		{"pil_gray8.tif", "", "", 1, 1},
+	} {
+		data, err := os.ReadFile(filepath.Join("..", "..", "testdata", c.file))
+		if err != nil {
+			t.Fatal(err)
+		}
+		f, err := Read(data, ReadSettings{})
+		if err != nil {
+			t.Fatalf("%s: %v", c.file, err)
+		}
+		dx, dy := f.PixelSize()
+		if math.Abs(dx-c.dx) > 1e-9*c.dx || math.Abs(dy-c.dy) > 1e-9*c.dy || f.Unit != c.unit || f.PixelSizeSource != c.source {
+			t.Errorf("%s: %g x %g %q from %q, want %g x %g %q from %q", c.file, dx, dy, f.Unit, f.PixelSizeSource, c.dx, c.dy, c.unit, c.source)
+		}
+	}
+}
+
+// A TIFF written with a pixel size in a length unit reads back with it
+// (the resolution tags carry it, to 1e-6 relative), and Python's imaging
+// library reads the same resolution (when it is installed).
+func TestTIFFWritesPixelSize(t *testing.T) {
+	f := ramp16()
+	f.Dx, f.Dy, f.Unit = 0.325, 0.65, "um"
+	var buf bytes.Buffer
+	if _, err := WriteTIFF(&buf, f, WriteSettings{}); err != nil {
+		t.Fatal(err)
+	}
+	g, err := Read(buf.Bytes(), ReadSettings{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	dx, dy := g.PixelSize()
+	if math.Abs(dx-0.325) > 1e-6 || math.Abs(dy-0.65) > 1e-6 || g.Unit != "um" || g.PixelSizeSource != SourceTIFFResolution {
+		t.Errorf("read back %g x %g %q (%s)", dx, dy, g.Unit, g.PixelSizeSource)
+	}
+	for i := range f.Data {
+		if g.Data[i] != f.Data[i] {
+			t.Fatalf("value %d: %g, want %g", i, g.Data[i], f.Data[i])
+		}
+	}
+	py := "/usr/bin/python3"
+	if exec.Command(py, "-c", "import PIL").Run() != nil {
+		t.Skip("Python's imaging library is not installed")
+	}
+	p := filepath.Join(t.TempDir(), "w.tif")
+	os.WriteFile(p, buf.Bytes(), 0o644)
+	out, err := exec.Command(py, "-c", "from PIL import Image; import sys; im=Image.open(sys.argv[1]); print(round(float(im.tag_v2[282]),3), round(float(im.tag_v2[283]),3), im.tag_v2[296], im.size)", p).CombinedOutput()
+	if err != nil {
+		t.Fatalf("PIL: %v %s", err, out)
+	}
+	// 0.325 um = 3.25e-5 cm: 30769.231 pixels per cm; 0.65 um: 15384.615.
+	if got := strings.TrimSpace(string(out)); got != fmt.Sprintf("30769.231 15384.615 3 (%d, %d)", f.Cols, f.Rows) {
+		t.Errorf("PIL reads %q", got)
 	}
 }

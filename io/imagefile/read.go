@@ -46,7 +46,13 @@ func Read(data []byte, s ReadSettings) (f *grid.Field, err error) {
 		}
 		return nil, fmt.Errorf("imagefile: %s: %w", format, err)
 	}
-	return FromImage(img), nil
+	f = FromImage(img)
+	if format == "tiff" {
+		if dx, dy, unit, src, ok := tiffPixelSize(data); ok {
+			f.Dx, f.Dy, f.Unit, f.PixelSizeSource = dx, dy, unit, src
+		}
+	}
+	return f, nil
 }
 
 // FromImage converts a decoded image to a field with unit pixel size.

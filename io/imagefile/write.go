@@ -1,6 +1,7 @@
 package imagefile
 
 import (
+	"encoding/binary"
 	"fmt"
 	"image"
 	"image/png"
@@ -8,8 +9,6 @@ import (
 	"math"
 
 	"barygrid/grid"
-
-	"golang.org/x/image/tiff"
 )
 
 // Scaling records how field values were mapped to stored samples:
@@ -112,10 +111,79 @@ func WritePNG(w io.Writer, f *grid.Field, s WriteSettings) (Scaling, error) {
 	return sc, nil
 }
 
-// WriteTIFF writes f as a grayscale TIFF (16-bit unless EightBit).
+// WriteTIFF writes f as an uncompressed grayscale TIFF (16-bit unless
+// EightBit). When the field's unit is a length (nm, um, mm, cm, m, km) its
+// pixel size goes into the baseline resolution tags (pixels per
+// centimetre, TIFF 6.0), so that reading the file back keeps it.
 func WriteTIFF(w io.Writer, f *grid.Field, s WriteSettings) (Scaling, error) {
 	im, sc := Gray(f, s)
-	if err := tiff.Encode(w, im, &tiff.Options{Compression: tiff.Deflate}); err != nil {
+	bits, bps := 16, 2
+	if s.EightBit {
+		bits, bps = 8, 1
+	}
+	pix := make([]byte, 0, f.Rows*f.Cols*bps)
+	switch g := im.(type) {
+	case *image.Gray:
+		for r := 0; r < f.Rows; r++ {
+			pix = append(pix, g.Pix[r*g.Stride:r*g.Stride+f.Cols]...)
+		}
+	case *image.Gray16:
+		for r := 0; r < f.Rows; r++ {
+			for c := 0; c < f.Cols; c++ {
+				o := r*g.Stride + 2*c
+				pix = append(pix, g.Pix[o+1], g.Pix[o]) // little-endian samples
+			}
+		}
+	}
+	type entry struct {
+		tag, typ uint16
+		count    uint32
+		value    uint32 // inline value, or offset for rationals
+	}
+	dx, dy := f.PixelSize()
+	cm := lengthInCM(f.Unit)
+	var entries []entry
+	// Layout: header (8), pixel data, then two rationals, then the IFD.
+	dataOff := uint32(8)
+	ratOff := dataOff + uint32(len(pix))
+	ifdOff := ratOff + 16
+	entries = append(entries,
+		entry{256, 4, 1, uint32(f.Cols)}, entry{257, 4, 1, uint32(f.Rows)},
+		entry{258, 3, 1, uint32(bits)}, entry{259, 3, 1, 1}, entry{262, 3, 1, 1},
+		entry{273, 4, 1, dataOff}, entry{277, 3, 1, 1}, entry{278, 4, 1, uint32(f.Rows)},
+		entry{279, 4, 1, uint32(len(pix))})
+	var rat [16]byte
+	if cm > 0 {
+		// Pixels per centimetre as a rational, the denominator as large as
+		// the 32-bit numerator allows (relative error below 1e-9).
+		for i, d := range []float64{dx, dy} {
+			ppcm := 1 / (d * cm)
+			den := math.Max(1, math.Min(1<<30, math.Floor(4e9/ppcm)))
+			num := math.Min(math.Round(ppcm*den), math.MaxUint32)
+			binary.LittleEndian.PutUint32(rat[8*i:], uint32(num))
+			binary.LittleEndian.PutUint32(rat[8*i+4:], uint32(den))
+		}
+		entries = append(entries, entry{282, 5, 1, ratOff}, entry{283, 5, 1, ratOff + 8}, entry{296, 3, 1, 3})
+	}
+	buf := make([]byte, 0, int(ifdOff)+2+12*len(entries)+4)
+	buf = append(buf, 'I', 'I', 42, 0)
+	buf = binary.LittleEndian.AppendUint32(buf, ifdOff)
+	buf = append(buf, pix...)
+	buf = append(buf, rat[:]...)
+	buf = binary.LittleEndian.AppendUint16(buf, uint16(len(entries)))
+	for _, e := range entries {
+		buf = binary.LittleEndian.AppendUint16(buf, e.tag)
+		buf = binary.LittleEndian.AppendUint16(buf, e.typ)
+		buf = binary.LittleEndian.AppendUint32(buf, e.count)
+		if e.typ == 3 {
+			buf = binary.LittleEndian.AppendUint16(buf, uint16(e.value))
+			buf = append(buf, 0, 0)
+		} else {
+			buf = binary.LittleEndian.AppendUint32(buf, e.value)
+		}
+	}
+	buf = binary.LittleEndian.AppendUint32(buf, 0)
+	if _, err := w.Write(buf); err != nil {
 		return sc, fmt.Errorf("imagefile: %w", err)
 	}
 	return sc, nil
