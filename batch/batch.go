@@ -36,7 +36,7 @@ type Group struct {
 }
 
 var fieldExt = map[string]bool{".png": true, ".jpg": true, ".jpeg": true, ".tif": true, ".tiff": true,
-	".bmp": true, ".npy": true, ".csv": true, ".tsv": true}
+	".bmp": true, ".npy": true, ".csv": true, ".tsv": true, ".nc": true}
 
 // Discover lists the subfolders of dir (sorted) with their field files.
 func Discover(dir string) ([]Group, error) {

@@ -143,10 +143,11 @@ func barycenterCommand() *cli.Command {
 			if err != nil {
 				return err
 			}
-			fs, err := loadFields(c, files)
+			fs, labels, err := loadFields(c, files)
 			if err != nil {
 				return err
 			}
+			files = labels // a NetCDF stack's planes are inputs of their own
 			if s.Weights, err = parseWeights(c.String("weights"), len(fs)); err != nil {
 				return err
 			}

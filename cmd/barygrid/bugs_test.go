@@ -320,3 +320,27 @@ func TestInspectPixelSizeSource(t *testing.T) {
 		}
 	}
 }
+
+// NetCDF (fixtures written by SciPy and ncgen): a variable with a leading
+// dimension is a stack whose planes are the inputs, --index picks a plane,
+// and a NetCDF-4 file is refused with the conversion command.
+func TestNetCDFInputs(t *testing.T) {
+	nc := filepath.Join("..", "..", "testdata", "nc_cdf1.nc")
+	rep := filepath.Join(t.TempDir(), "r.json")
+	code, _, errs := runCLI(t, "barycenter", "--epsilon", "2", "--report", rep, nc)
+	if code != 0 {
+		t.Fatalf("exit %d: %s", code, errs)
+	}
+	raw, _ := os.ReadFile(rep)
+	if !strings.Contains(string(raw), "nc_cdf1.nc[time=1]") || !strings.Contains(string(raw), `"unit": "km"`) {
+		t.Errorf("report: %s", raw[:300])
+	}
+	code, out, errs := runCLI(t, "inspect", "--json", "--variable", "rain", "--index", "time=1", nc)
+	if code != 0 || !strings.Contains(out, `"pixel_size_source": "netcdf-coordinates"`) || !strings.Contains(out, `"max": 10.5`) {
+		t.Errorf("inspect: exit %d %s %s", code, out, errs)
+	}
+	code, _, errs = runCLI(t, "inspect", filepath.Join("..", "..", "testdata", "nc_netcdf4.nc"))
+	if code != 1 || !strings.Contains(errs, "nccopy") || strings.Count(strings.TrimSpace(errs), "\n") != 0 {
+		t.Errorf("NetCDF-4: exit %d, %q", code, errs)
+	}
+}

@@ -27,6 +27,10 @@ func inputFlags() []cli.Flag {
 		&cli.BoolFlag{Name: "invert", Usage: "read dark objects on a light background (value -> max - value)"},
 		&cli.StringFlag{Name: "background", Usage: "subtract a constant `LEVEL`, or a percentile written pNN (p10), and clip at zero"},
 		&cli.IntFlag{Name: "max-pixels", Value: 1 << 28, Usage: "refuse inputs declaring more pixels than this, before reading them"},
+		&cli.StringFlag{Name: "variable", Usage: "NetCDF: read variable `NAME` (default: the only one with two or more dimensions)"},
+		&cli.StringFlag{Name: "index", Usage: "NetCDF: take the 2-D slice at `DIM=I[,DIM=I]` along the variable's leading dimensions (time=3,member=0; default 0 where a dimension has length 1)"},
+		&cli.BoolFlag{Name: "fill-zero", Usage: "NetCDF: read fill and missing values (_FillValue, missing_value) as zero instead of refusing the file"},
+		&cli.BoolFlag{Name: "degrees", Usage: "NetCDF: keep latitude-longitude coordinates in degrees (default: km at the domain's centre latitude)"},
 		&cli.StringFlag{Name: "resample", Usage: "resample every input to `ROWSxCOLS`, rows first (128x96: 128 rows high, 96 columns wide), keeping the physical extent; off: differing shapes are an error"},
 	}
 }
@@ -40,7 +44,19 @@ func outputFlags() []cli.Flag {
 }
 
 func loadSettings(c *cli.Context) (fieldfile.LoadSettings, error) {
-	s := fieldfile.LoadSettings{MaxPixels: c.Int("max-pixels"), Invert: c.Bool("invert"), Unit: c.String("unit")}
+	s := fieldfile.LoadSettings{MaxPixels: c.Int("max-pixels"), Invert: c.Bool("invert"), Unit: c.String("unit"),
+		Variable: c.String("variable"), FillAsZero: c.Bool("fill-zero"), Degrees: c.Bool("degrees")}
+	if v := c.String("index"); v != "" {
+		s.Index = map[string]int{}
+		for _, part := range strings.Split(v, ",") {
+			name, num, ok := strings.Cut(part, "=")
+			i, err := strconv.Atoi(strings.TrimSpace(num))
+			if !ok || name == "" || err != nil || i < 0 {
+				return s, usagef("--index: want DIM=I[,DIM=I] with I >= 0, got %q", v)
+			}
+			s.Index[strings.TrimSpace(name)] = i
+		}
+	}
 	if v := c.String("pixel-size"); v != "" {
 		xs, err := parseFloats(v)
 		if err != nil || len(xs) > 2 || len(xs) == 0 || !(xs[0] > 0) || (len(xs) == 2 && !(xs[1] > 0)) {
@@ -83,33 +99,39 @@ func parseFloats(v string) ([]float64, error) {
 
 // loadFields reads every file, applies the shared preprocessing and checks
 // that shapes agree (or resamples when asked).
-func loadFields(c *cli.Context, files []string) ([]*grid.Field, error) {
+//
+// A NetCDF file whose variable has leading dimensions (ensemble members,
+// times) and no --index is a stack: each plane is an input, labelled
+// FILE[DIM=I]; the returned labels name every input.
+func loadFields(c *cli.Context, files []string) ([]*grid.Field, []string, error) {
 	if len(files) == 0 {
-		return nil, usagef("%s: no input files", c.Command.Name)
+		return nil, nil, usagef("%s: no input files", c.Command.Name)
 	}
 	s, err := loadSettings(c)
 	if err != nil {
-		return nil, err
+		return nil, nil, err
 	}
 	var fs []*grid.Field
+	var labels []string
 	for _, p := range files {
-		f, err := fieldfile.Load(p, s)
+		planes, names, err := fieldfile.LoadPlanes(p, s)
 		if err != nil {
-			return nil, err
+			return nil, nil, err
 		}
-		fs = append(fs, f)
+		fs, labels = append(fs, planes...), append(labels, names...)
 	}
+	files = labels
 	shape, err := parseResample(c.String("resample"))
 	if err != nil {
-		return nil, err
+		return nil, nil, err
 	}
 	if err := resampleAll(fs, files, shape); err != nil {
-		return nil, err
+		return nil, nil, err
 	}
 	if err := grid.SameShape(fs, files); err != nil {
-		return nil, fmt.Errorf("%v (use --resample ROWSxCOLS)", err)
+		return nil, nil, fmt.Errorf("%v (use --resample ROWSxCOLS)", err)
 	}
-	return fs, nil
+	return fs, labels, nil
 }
 
 // parseResample reads --resample ROWSxCOLS; "" is off (zero shape).

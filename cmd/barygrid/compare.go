@@ -58,7 +58,7 @@ func morphCommand() *cli.Command {
 			if err != nil {
 				return err
 			}
-			fs, err := loadFields(c, c.Args().Slice())
+			fs, _, err := loadFields(c, c.Args().Slice())
 			if err != nil {
 				return err
 			}
@@ -142,10 +142,11 @@ func distanceCommand() *cli.Command {
 			if s.Mask != nil {
 				return usagef("distance: --mask is not supported for divergences")
 			}
-			fs, err := loadFields(c, files)
+			fs, labels, err := loadFields(c, files)
 			if err != nil {
 				return err
 			}
+			files = labels // a NetCDF stack's planes are inputs of their own
 			ds := ensemble.DistanceSettings{Solver: s}
 			switch {
 			case c.Bool("gauss"):

@@ -1,6 +1,7 @@
 package fieldfile
 
 import (
+	"barygrid/io/netcdf"
 	"bytes"
 	"errors"
 	"fmt"
@@ -10,6 +11,7 @@ import (
 	"io/fs"
 	"os"
 	"path/filepath"
+	"sort"
 	"strings"
 
 	"barygrid/grid"
@@ -29,12 +31,16 @@ const (
 	BMP  Format = "bmp"
 	GIF  Format = "gif"
 	NPY  Format = "npy"
-	Text Format = "csv"
+	// NetCDF is a NetCDF classic file (or a NetCDF-4 one, refused with a
+	// conversion hint).
+	NetCDF Format = "netcdf"
+	Text   Format = "csv"
 )
 
 var extFormat = map[string]Format{
 	".png": PNG, ".jpg": JPEG, ".jpeg": JPEG, ".tif": TIFF, ".tiff": TIFF,
 	".bmp": BMP, ".npy": NPY, ".csv": Text, ".tsv": Text, ".txt": Text, ".dat": Text,
+	".nc": NetCDF, ".nc4": NetCDF, ".cdf": NetCDF,
 }
 
 // Sniff returns the format the content announces, or Text when it has no
@@ -53,6 +59,9 @@ func Sniff(data []byte) Format {
 		return GIF
 	case bytes.HasPrefix(data, []byte("\x93NUMPY")):
 		return NPY
+	case bytes.HasPrefix(data, []byte("CDF\x01")), bytes.HasPrefix(data, []byte("CDF\x02")), bytes.HasPrefix(data, []byte("CDF\x05")),
+		bytes.HasPrefix(data, []byte("\x89HDF\r\n\x1a\n")):
+		return NetCDF
 	}
 	return Text
 }
@@ -75,6 +84,13 @@ type LoadSettings struct {
 	// SkipValidate keeps fields that are not measures (all zero), for
 	// masks and inspection.
 	SkipValidate bool
+	// NetCDF files: the variable, the index along its leading dimensions,
+	// fill values read as zero, latitude-longitude kept in degrees (see
+	// io/netcdf.Settings).
+	Variable   string
+	Index      map[string]int
+	FillAsZero bool
+	Degrees    bool
 }
 
 // Load reads the field in path. Errors name the file and the cause.
@@ -114,6 +130,9 @@ func Decode(data []byte, ext string, s LoadSettings) (*grid.Field, error) {
 		f, err = npy.Read(data, npy.ReadSettings{MaxPixels: s.MaxPixels})
 	case Text:
 		f, err = csvgrid.Read(data, csvgrid.ReadSettings{MaxPixels: s.MaxPixels})
+	case NetCDF:
+		f, _, err = netcdf.Read(data, netcdf.Settings{Variable: s.Variable, Index: s.Index, FillAsZero: s.FillAsZero,
+			Degrees: s.Degrees, Limits: grid.ReadLimits{MaxPixels: s.MaxPixels}})
 	default:
 		f, err = imagefile.Read(data, imagefile.ReadSettings{MaxPixels: s.MaxPixels})
 	}
@@ -129,6 +148,8 @@ func describe(f Format) string {
 		return "a text grid"
 	case NPY:
 		return "a NumPy array"
+	case NetCDF:
+		return "a NetCDF file"
 	}
 	return "a " + strings.ToUpper(string(f)) + " image"
 }
@@ -284,4 +305,54 @@ func unwrapPath(err error) error {
 		return le.Err
 	}
 	return err
+}
+
+// LoadPlanes reads every 2-D plane of a file: the planes of a NetCDF
+// variable's leading dimensions when Index fixes none of them (a stack to
+// average as a group), else the one field Load reads. Labels name the
+// planes ("file.nc[member=3]").
+func LoadPlanes(path string, s LoadSettings) ([]*grid.Field, []string, error) {
+	data, err := os.ReadFile(path)
+	if err != nil {
+		var pe *fs.PathError
+		if errors.As(err, &pe) {
+			return nil, nil, fmt.Errorf("%s: %v", path, pe.Err)
+		}
+		return nil, nil, fmt.Errorf("%s: %w", path, err)
+	}
+	if Sniff(data) != NetCDF || len(s.Index) > 0 {
+		f, err := Decode(data, filepath.Ext(path), s)
+		if err != nil {
+			return nil, nil, fmt.Errorf("%s: %w", path, err)
+		}
+		return []*grid.Field{f}, []string{path}, nil
+	}
+	planes, err := netcdf.Planes(data, netcdf.Settings{Variable: s.Variable})
+	if err != nil {
+		return nil, nil, fmt.Errorf("%s: %w", path, err)
+	}
+	var fs []*grid.Field
+	var labels []string
+	for _, idx := range planes {
+		ps := s
+		ps.Index = idx
+		f, err := Decode(data, filepath.Ext(path), ps)
+		if err != nil {
+			return nil, nil, fmt.Errorf("%s%s: %w", path, label(idx), err)
+		}
+		fs, labels = append(fs, f), append(labels, path+label(idx))
+	}
+	return fs, labels, nil
+}
+
+func label(idx map[string]int) string {
+	if len(idx) == 0 {
+		return ""
+	}
+	var parts []string
+	for k, v := range idx {
+		parts = append(parts, fmt.Sprintf("%s=%d", k, v))
+	}
+	sort.Strings(parts)
+	return "[" + strings.Join(parts, ",") + "]"
 }
