@@ -50,7 +50,16 @@ func Discover(dir string) ([]Group, error) {
 			continue
 		}
 		// Stat follows symbolic links: a linked folder is a group too.
-		if st, err := os.Stat(filepath.Join(dir, e.Name())); err != nil || !st.IsDir() {
+		st, err := os.Stat(filepath.Join(dir, e.Name()))
+		if err != nil {
+			continue
+		}
+		if !st.IsDir() {
+			// A NetCDF file at the top is a stack: its planes (members,
+			// times) are the group's inputs, named after the file.
+			if strings.EqualFold(filepath.Ext(e.Name()), ".nc") {
+				gs = append(gs, Group{Name: strings.TrimSuffix(e.Name(), filepath.Ext(e.Name())), Files: []string{filepath.Join(dir, e.Name())}})
+			}
 			continue
 		}
 		files, err := os.ReadDir(filepath.Join(dir, e.Name()))
@@ -262,7 +271,7 @@ type Job struct {
 // earlier complete result stays until the new one is whole.
 func Process(g Group, job Job) Row {
 	out, ls, s, settings, force := job.Out, job.Load, job.Solver, job.Key, job.Force
-	row := Row{Group: g.Name, Inputs: len(g.Files)}
+	row := Row{Group: g.Name, Inputs: len(g.Files)} // planes, once read
 	fail := func(err error) Row {
 		row.Status, row.Message = "failed", strings.ReplaceAll(err.Error(), "\n", "; ")
 		return row
@@ -288,24 +297,34 @@ func Process(g Group, job Job) Row {
 		}
 		return row
 	}
-	fs := make([]*grid.Field, len(g.Files))
+	// Every plane of a stack (a NetCDF variable with leading dimensions)
+	// is an input of its own; labels name them.
+	var fs []*grid.Field
+	var labels []string
 	for i, f := range g.Files {
-		var err error
-		if fs[i], err = fieldfile.Load(f, ls); err != nil {
+		planes, names, err := fieldfile.LoadPlanes(f, ls)
+		if err != nil {
 			return fail(err)
 		}
-		inputs[i].Mass = fs[i].Mass()
+		for _, p := range planes {
+			inputs[i].Mass += p.Mass()
+		}
+		fs, labels = append(fs, planes...), append(labels, names...)
+	}
+	row.Inputs = len(fs)
+	if g.Weights != nil && len(fs) != len(g.Files) {
+		return fail(fmt.Errorf("weights are given per file, but the files hold %d planes", len(fs)))
 	}
 	if job.Resample[0] > 0 {
 		for i, f := range fs {
 			r, err := grid.Resample(f, job.Resample[0], job.Resample[1])
 			if err != nil {
-				return fail(fmt.Errorf("%s: %w", g.Files[i], err))
+				return fail(fmt.Errorf("%s: %w", labels[i], err))
 			}
 			fs[i] = r
 		}
 	}
-	if err := grid.SameShape(fs, g.Files); err != nil {
+	if err := grid.SameShape(fs, labels); err != nil {
 		return fail(err)
 	}
 	s.Weights = g.Weights
@@ -325,7 +344,7 @@ func Process(g Group, job Job) Row {
 	for i, f := range fs {
 		gf, m, err := gaussfit.Fit(f, gaussfit.FitSettings{})
 		if err != nil {
-			return fail(fmt.Errorf("%s: %w", g.Files[i], err))
+			return fail(fmt.Errorf("%s: %w", labels[i], err))
 		}
 		gs, mass = append(gs, gf), mass+m
 	}
@@ -366,7 +385,7 @@ func Process(g Group, job Job) Row {
 			return fail(err)
 		}
 	}
-	sheetImg := render.Summary(g.Name, baseNames(g.Files), fs, mean, r.Barycenter, gs, gr.Barycenter)
+	sheetImg := render.Summary(g.Name, baseNames(labels), fs, mean, r.Barycenter, gs, gr.Barycenter)
 	if err := fieldfile.WriteAtomic(filepath.Join(tmp, "contact_sheet.png"), true, func(w io.Writer) error { return png.Encode(w, sheetImg) }); err != nil {
 		return fail(err)
 	}
@@ -376,7 +395,7 @@ func Process(g Group, job Job) Row {
 	if err != nil {
 		return fail(err)
 	}
-	br := report.NewBarycenter(g.Files, fs, g.Weights, s, r)
+	br := report.NewBarycenter(labels, fs, g.Weights, s, r)
 	br.Residuals = nil // in the plot; keeps the report readable
 	gp := report.NewGaussian(gr, "fixed-point", len(gs))
 	gp.MeanMass, gp.Objective = mass/float64(len(gs)), nil

@@ -1,7 +1,11 @@
 package batch
 
 import (
+	"barygrid/sinkhorn"
 	"fmt"
+	"os"
+	"path/filepath"
+	"strings"
 	"testing"
 )
 
@@ -29,5 +33,31 @@ func TestShardSpread(t *testing.T) {
 		if c < 70 || c > 130 {
 			t.Errorf("shard %d/4 holds %d of 400 groups", i+1, c)
 		}
+	}
+}
+
+// A NetCDF file at the top of the input folder is a group whose planes are
+// the inputs (testdata/nc_cdf1.nc: two times, written by SciPy).
+func TestNetCDFStackIsAGroup(t *testing.T) {
+	dir := t.TempDir()
+	in, out := filepath.Join(dir, "in"), filepath.Join(dir, "out")
+	os.MkdirAll(in, 0o755)
+	data, err := os.ReadFile(filepath.Join("..", "testdata", "nc_cdf1.nc"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	os.WriteFile(filepath.Join(in, "rain.nc"), data, 0o644)
+	groups, err := Discover(in)
+	if err != nil || len(groups) != 1 || groups[0].Name != "rain" {
+		t.Fatalf("%v %+v", err, groups)
+	}
+	os.MkdirAll(out, 0o755)
+	rows := Run(groups, Job{Out: out, Solver: sinkhorn.Settings{Epsilon: 2}, Key: map[string]any{}}, RunSettings{})
+	if rows[0].Status != "ok" || rows[0].Inputs != 2 {
+		t.Fatalf("%+v", rows[0])
+	}
+	rep, _ := os.ReadFile(filepath.Join(out, "rain", "report.json"))
+	if !strings.Contains(string(rep), "rain.nc[time=1]") {
+		t.Errorf("report does not name the planes: %.300s", rep)
 	}
 }
