@@ -16,6 +16,11 @@ type Field struct {
 	Dx, Dy float64
 	// Unit names the physical unit of Dx and Dy ("um", "km"); empty means pixels.
 	Unit string
+	// X0 and Y0 are the coordinates of pixel (0, 0) in the file's own frame
+	// (NetCDF coordinate variables), kept so that a result can be written
+	// with its input's coordinates. Metadata only: moments and transport
+	// place pixel (r, c) at (c Dx, r Dy).
+	X0, Y0 float64
 	// PixelSizeSource says where Dx and Dy came from: "default" (unit
 	// pixels), "flag" (given by the user), or the file's own metadata
 	// ("tiff-resolution", "ome", "geotiff"). Empty means not recorded.

@@ -471,7 +471,8 @@ func Barycenter(fields []*grid.Field, s Settings) (*Result, error) {
 		res.Barycenter = grid.Scale(res.Barycenter, res.Mass)
 	}
 	if res.Barycenter != nil {
-		res.Barycenter.Dx, res.Barycenter.Dy, res.Barycenter.Unit = fields[0].Dx, fields[0].Dy, fields[0].Unit
+		b, f0 := res.Barycenter, fields[0]
+		b.Dx, b.Dy, b.Unit, b.X0, b.Y0 = f0.Dx, f0.Dy, f0.Unit, f0.X0, f0.Y0
 	}
 	return res, nil
 }

@@ -217,6 +217,8 @@ func Save(path string, f *grid.Field, s SaveSettings) (string, error) {
 		enc = func(w io.Writer) error { return npy.Write(w, f) }
 	case ".csv", ".txt":
 		enc = func(w io.Writer) error { return csvgrid.Write(w, f) }
+	case ".nc":
+		enc = func(w io.Writer) error { return netcdf.Write(w, f, netcdf.WriteSettings{X0: f.X0, Y0: f.Y0}) }
 	case ".png":
 		enc = func(w io.Writer) error {
 			sc, err := imagefile.WritePNG(w, f, ws)
@@ -230,7 +232,7 @@ func Save(path string, f *grid.Field, s SaveSettings) (string, error) {
 			return err
 		}
 	default:
-		return "", fmt.Errorf("%s: unknown output format %q (use .npy, .csv, .png or .tif)", path, ext)
+		return "", fmt.Errorf("%s: unknown output format %q (use .npy, .csv, .png, .tif or .nc)", path, ext)
 	}
 	if err := WriteAtomic(path, s.Force, enc); err != nil {
 		return "", err

@@ -26,7 +26,7 @@ func sample() *grid.Field {
 func TestRoundTripAllFormats(t *testing.T) {
 	dir := t.TempDir()
 	f := sample()
-	for _, ext := range []string{".npy", ".csv", ".png", ".tif"} {
+	for _, ext := range []string{".npy", ".csv", ".png", ".tif", ".nc"} {
 		p := filepath.Join(dir, "f"+ext)
 		if _, err := Save(p, f, SaveSettings{}); err != nil {
 			t.Fatal(err)

@@ -521,6 +521,7 @@ func (f *file) pixelSize(v *variable, out *grid.Field, info *Info, degrees bool)
 		return
 	}
 	out.Dx, out.Dy = hx, hy
+	out.X0, out.Y0 = xs[0], ys[0]
 	info.PixelUnit = ux
 	if ux != uy {
 		info.Note = fmt.Sprintf("x is in %q, y in %q", ux, uy)
@@ -537,13 +538,13 @@ func (f *file) pixelSize(v *variable, out *grid.Field, info *Info, degrees bool)
 			const km = 6371 * math.Pi / 180
 			mid := (ys[0] + ys[len(ys)-1]) / 2
 			out.Dx, out.Dy = hx*km*math.Cos(mid*math.Pi/180), hy*km
+			out.X0, out.Y0 = 0, 0 // no coordinates in km to keep
 			info.PixelUnit = "km"
 			info.Note = "latitude-longitude degrees converted to km at latitude " + strconv.FormatFloat(mid, 'g', 4, 64)
 		}
 	}
 	out.Unit = info.PixelUnit
 	out.PixelSizeSource = "netcdf-coordinates"
-	_ = xs
 }
 
 // Planes lists the 2-D slices of the chosen variable: one index map per

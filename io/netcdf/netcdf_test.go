@@ -1,9 +1,12 @@
 package netcdf
 
 import (
+	"barygrid/grid"
+	"bytes"
 	"errors"
 	"math"
 	"os"
+	"os/exec"
 	"path/filepath"
 	"strings"
 	"testing"
@@ -138,4 +141,48 @@ func FuzzRead(f *testing.F) {
 			}
 		}
 	})
+}
+
+// A field written by Write reads back exactly with its pixel size and
+// unit, and SciPy (an independent reader, when installed) reads the same
+// values, coordinates and units.
+func TestWriteRoundTrip(t *testing.T) {
+	f := grid.New(3, 5)
+	for i := range f.Data {
+		f.Data[i] = float64(i) * 0.25
+	}
+	f.Dx, f.Dy, f.Unit = 2, 4, "km"
+	var buf bytes.Buffer
+	if err := Write(&buf, f, WriteSettings{Variable: "rain", Units: "mm/h", X0: 100, Y0: 10}); err != nil {
+		t.Fatal(err)
+	}
+	g, info, err := Read(buf.Bytes(), Settings{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if g.Dx != 2 || g.Dy != 4 || g.Unit != "km" || info.Units != "mm/h" || info.Variable != "rain" {
+		t.Errorf("%g x %g %q, units %q, variable %q", g.Dx, g.Dy, g.Unit, info.Units, info.Variable)
+	}
+	for i := range f.Data {
+		if g.Data[i] != f.Data[i] {
+			t.Fatalf("value %d: %g, want %g", i, g.Data[i], f.Data[i])
+		}
+	}
+	py := "/usr/bin/python3"
+	if exec.Command(py, "-c", "import scipy.io").Run() != nil {
+		t.Skip("SciPy is not installed")
+	}
+	p := filepath.Join(t.TempDir(), "w.nc")
+	os.WriteFile(p, buf.Bytes(), 0o644)
+	out, err := exec.Command(py, "-c", `import sys
+from scipy.io import netcdf_file
+f = netcdf_file(sys.argv[1], "r", mmap=False)
+v = f.variables["rain"]
+print(v.shape, float(v[2, 4]), v.units.decode(), list(f.variables["x"][:2]), f.variables["x"].units.decode(), list(f.variables["y"][:2]))`, p).CombinedOutput()
+	if err != nil {
+		t.Fatalf("SciPy: %v %s", err, out)
+	}
+	if got := strings.TrimSpace(string(out)); got != "(3, 5) 3.5 mm/h [100.0, 102.0] km [10.0, 14.0]" {
+		t.Errorf("SciPy reads %q", got)
+	}
 }
