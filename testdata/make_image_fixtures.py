@@ -54,3 +54,11 @@ ifd = TiffImagePlugin.ImageFileDirectory_v2()
 ifd[33550] = (250.0, 500.0, 0.0)
 ifd.tagtype[33550] = 12
 g8.save(os.path.join(here, "pil_geotiff.tif"), tiffinfo=ifd)
+
+# A 3-page 8-bit stack (z-stack planes): page k holds the ramp plus 50 k.
+pages = []
+for k in range(3):
+    p = Image.new("L", (cols, rows))
+    p.putdata([v + 50 * k for row in ramp for v in row])
+    pages.append(p)
+pages[0].save(os.path.join(here, "pil_stack.tif"), save_all=True, append_images=pages[1:])

@@ -344,3 +344,22 @@ func TestNetCDFInputs(t *testing.T) {
 		t.Errorf("NetCDF-4: exit %d, %q", code, errs)
 	}
 }
+
+// A multi-page TIFF (written by Python's imaging library) is a stack whose
+// pages are the inputs; --index page=I picks one (page 1: the ramp 37 r +
+// 11 c plus 50, largest 205).
+func TestTIFFStack(t *testing.T) {
+	stack := filepath.Join("..", "..", "testdata", "pil_stack.tif")
+	rep := filepath.Join(t.TempDir(), "r.json")
+	if code, _, errs := runCLI(t, "barycenter", "--epsilon", "1", "--report", rep, stack); code != 0 {
+		t.Fatalf("exit %d: %s", code, errs)
+	}
+	raw, _ := os.ReadFile(rep)
+	if !strings.Contains(string(raw), "pil_stack.tif[page=2]") {
+		t.Errorf("report: %.300s", raw)
+	}
+	code, out, errs := runCLI(t, "inspect", "--json", "--index", "page=1", stack)
+	if code != 0 || !strings.Contains(out, `"max": 205`) {
+		t.Errorf("inspect page 1: exit %d %s %s", code, out, errs)
+	}
+}

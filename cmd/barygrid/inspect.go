@@ -57,24 +57,26 @@ func inspectCommand() *cli.Command {
 			s.SkipValidate = true
 			var rows []fieldSummary
 			for _, p := range c.Args().Slice() {
-				f, err := fieldfile.Load(p, s)
+				planes, labels, err := fieldfile.LoadPlanes(p, s)
 				if err != nil {
 					return err
 				}
-				if err := f.Validate(); err != nil {
-					return fmt.Errorf("%s: %w", p, err)
-				}
-				row := summarize(p, f)
-				if s.Dx > 0 {
-					// Say what the flag replaced, when the file has its own.
-					own := s
-					own.Dx, own.Dy, own.Unit = 0, 0, ""
-					if g, err := fieldfile.Load(p, own); err == nil && g.PixelSizeSource != "default" {
-						gx, gy := g.PixelSize()
-						row.Note = fmt.Sprintf("the file says %gx%g %s (%s); --pixel-size overrides it", gx, gy, g.Unit, g.PixelSizeSource)
+				for i, f := range planes {
+					if err := f.Validate(); err != nil {
+						return fmt.Errorf("%s: %w", labels[i], err)
 					}
+					row := summarize(labels[i], f)
+					if s.Dx > 0 {
+						// Say what the flag replaced, when the file has its own.
+						own := s
+						own.Dx, own.Dy, own.Unit = 0, 0, ""
+						if g, err := fieldfile.Load(p, own); err == nil && g.PixelSizeSource != "default" {
+							gx, gy := g.PixelSize()
+							row.Note = fmt.Sprintf("the file says %gx%g %s (%s); --pixel-size overrides it", gx, gy, g.Unit, g.PixelSizeSource)
+						}
+					}
+					rows = append(rows, row)
 				}
-				rows = append(rows, row)
 			}
 			if c.Bool("json") {
 				enc := json.NewEncoder(os.Stdout)

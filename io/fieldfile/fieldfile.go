@@ -322,6 +322,33 @@ func LoadPlanes(path string, s LoadSettings) ([]*grid.Field, []string, error) {
 		}
 		return nil, nil, fmt.Errorf("%s: %w", path, err)
 	}
+	if Sniff(data) == TIFF {
+		// A multi-page TIFF (z-stack, time series) is a stack of pages,
+		// unless Index picks one ("page").
+		n := imagefile.TIFFPages(data)
+		if p, ok := s.Index["page"]; ok || n > 1 {
+			pages := []int{p}
+			if !ok {
+				pages = pages[:0]
+				for i := 0; i < n; i++ {
+					pages = append(pages, i)
+				}
+			}
+			var fs []*grid.Field
+			var labels []string
+			for _, i := range pages {
+				f, err := imagefile.ReadPage(data, i, imagefile.ReadSettings{MaxPixels: s.MaxPixels})
+				if err == nil {
+					f, err = Prepare(f, s)
+				}
+				if err != nil {
+					return nil, nil, fmt.Errorf("%s[page=%d]: %w", path, i, err)
+				}
+				fs, labels = append(fs, f), append(labels, fmt.Sprintf("%s[page=%d]", path, i))
+			}
+			return fs, labels, nil
+		}
+	}
 	if Sniff(data) != NetCDF || len(s.Index) > 0 {
 		f, err := Decode(data, filepath.Ext(path), s)
 		if err != nil {

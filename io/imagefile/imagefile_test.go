@@ -283,3 +283,27 @@ func TestTIFFWritesPixelSize(t *testing.T) {
 		t.Errorf("PIL reads %q", got)
 	}
 }
+
+// A 3-page TIFF written by Python's imaging library: three pages, page k
+// holds the ramp plus 50 k; a page past the end is an error.
+func TestTIFFPages(t *testing.T) {
+	data, err := os.ReadFile(filepath.Join("..", "..", "testdata", "pil_stack.tif"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if n := TIFFPages(data); n != 3 {
+		t.Fatalf("%d pages, want 3", n)
+	}
+	for k := 0; k < 3; k++ {
+		f, err := ReadPage(data, k, ReadSettings{})
+		if err != nil {
+			t.Fatal(err)
+		}
+		if want := float64(37*2 + 11*3 + 50*k); f.At(2, 3) != want {
+			t.Errorf("page %d: (2, 3) = %g, want %g", k, f.At(2, 3), want)
+		}
+	}
+	if _, err := ReadPage(data, 3, ReadSettings{}); err == nil {
+		t.Error("page 3 of 3 accepted")
+	}
+}

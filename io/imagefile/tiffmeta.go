@@ -1,8 +1,10 @@
 package imagefile
 
 import (
+	"barygrid/grid"
 	"encoding/binary"
 	"encoding/xml"
+	"fmt"
 	"math"
 	"strings"
 )
@@ -157,4 +159,59 @@ func lengthInCM(unit string) float64 {
 		return 1e5
 	}
 	return 0
+}
+
+// tiffPages returns the offsets of the IFDs of a TIFF, one per page, in
+// order (at most limit; a loop in the chain ends it).
+func tiffPages(data []byte, limit int) []uint32 {
+	if len(data) < 8 {
+		return nil
+	}
+	var bo binary.ByteOrder
+	switch string(data[:2]) {
+	case "II":
+		bo = binary.LittleEndian
+	case "MM":
+		bo = binary.BigEndian
+	default:
+		return nil
+	}
+	var out []uint32
+	seen := map[uint32]bool{}
+	off := bo.Uint32(data[4:])
+	for off >= 8 && int(off)+2 <= len(data) && !seen[off] && len(out) < limit {
+		seen[off] = true
+		out = append(out, off)
+		n := int(bo.Uint16(data[off:]))
+		next := int(off) + 2 + 12*n
+		if next+4 > len(data) {
+			break
+		}
+		off = bo.Uint32(data[next:])
+	}
+	return out
+}
+
+// TIFFPages returns the number of pages (images) of a TIFF: the planes of
+// a z-stack or a time series.
+func TIFFPages(data []byte) int { return len(tiffPages(data, 1<<16)) }
+
+// ReadPage decodes page i (from 0) of a multi-page TIFF: the file's header
+// is pointed at that page's directory, whose strip offsets are absolute,
+// and read as a one-page file.
+func ReadPage(data []byte, i int, s ReadSettings) (*grid.Field, error) {
+	pages := tiffPages(data, i+1)
+	if i < 0 || i >= len(pages) {
+		return nil, fmt.Errorf("imagefile: the TIFF has %d pages, no page %d", len(pages), i)
+	}
+	if i == 0 {
+		return Read(data, s)
+	}
+	c := append([]byte(nil), data...)
+	if string(c[:2]) == "II" {
+		binary.LittleEndian.PutUint32(c[4:], pages[i])
+	} else {
+		binary.BigEndian.PutUint32(c[4:], pages[i])
+	}
+	return Read(c, s)
 }
