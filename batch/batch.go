@@ -55,10 +55,18 @@ func Discover(dir string) ([]Group, error) {
 			continue
 		}
 		if !st.IsDir() {
-			// A NetCDF file at the top is a stack: its planes (members,
-			// times) are the group's inputs, named after the file.
-			if strings.EqualFold(filepath.Ext(e.Name()), ".nc") {
-				gs = append(gs, Group{Name: strings.TrimSuffix(e.Name(), filepath.Ext(e.Name())), Files: []string{filepath.Join(dir, e.Name())}})
+			// A NetCDF file or a multi-page TIFF at the top is a stack: its
+			// planes (members, times, z) are the group's inputs, named after
+			// the file.
+			p, ext := filepath.Join(dir, e.Name()), strings.ToLower(filepath.Ext(e.Name()))
+			stack := ext == ".nc"
+			if ext == ".tif" || ext == ".tiff" {
+				if data, err := os.ReadFile(p); err == nil {
+					stack = imagefile.TIFFPages(data) > 1
+				}
+			}
+			if stack {
+				gs = append(gs, Group{Name: strings.TrimSuffix(e.Name(), filepath.Ext(e.Name())), Files: []string{p}})
 			}
 			continue
 		}
