@@ -30,6 +30,10 @@ import (
 
 // Group is one unit of batch work: a name and its input files.
 type Group struct {
+	// Carry, when set, names a second field per input (same order), moved
+	// along each input's plan into the template's frame and averaged there
+	// (carried.npy, carried.png in the group's folder).
+	Carry   []string
 	Name    string
 	Files   []string
 	Weights []float64 // nil: equal
@@ -107,12 +111,19 @@ func ReadManifest(path string) ([]Group, error) {
 	}
 	byName := map[string]*Group{}
 	var order []string
+	// A header row names the columns: group, file, and optionally weight
+	// and carry (a second field per input, carried into the template).
+	col := map[string]int{"group": 0, "file": 1, "weight": 2, "carry": -1}
 	for i, rec := range recs {
 		if i == 0 && len(rec) >= 2 && rec[0] == "group" && rec[1] == "file" {
+			col["weight"] = -1
+			for j, name := range rec {
+				col[strings.TrimSpace(name)] = j
+			}
 			continue
 		}
-		if len(rec) < 2 || len(rec) > 3 || rec[0] == "" || rec[1] == "" {
-			return nil, fmt.Errorf("%s: line %d: want group,file[,weight]", path, i+1)
+		if len(rec) < 2 || len(rec) > 4 || rec[0] == "" || rec[1] == "" {
+			return nil, fmt.Errorf("%s: line %d: want group,file[,weight][,carry]", path, i+1)
 		}
 		if strings.ContainsAny(rec[0], `/\`) || rec[0] == "." || rec[0] == ".." {
 			return nil, fmt.Errorf("%s: line %d: group name %q is not a folder name", path, i+1, rec[0])
@@ -129,12 +140,22 @@ func ReadManifest(path string) ([]Group, error) {
 		}
 		g.Files = append(g.Files, file)
 		w := 1.0
-		if len(rec) == 3 {
-			if w, err = strconv.ParseFloat(rec[2], 64); err != nil || !(w >= 0) {
-				return nil, fmt.Errorf("%s: line %d: weight %q is not a non-negative number", path, i+1, rec[2])
+		if j := col["weight"]; j >= 0 && j < len(rec) && rec[j] != "" {
+			if w, err = strconv.ParseFloat(rec[j], 64); err != nil || !(w >= 0) {
+				return nil, fmt.Errorf("%s: line %d: weight %q is not a non-negative number", path, i+1, rec[j])
 			}
 		}
 		g.Weights = append(g.Weights, w)
+		if j := col["carry"]; j >= 0 {
+			if j >= len(rec) || rec[j] == "" {
+				return nil, fmt.Errorf("%s: line %d: the carry column is empty", path, i+1)
+			}
+			c := rec[j]
+			if !filepath.IsAbs(c) {
+				c = filepath.Join(filepath.Dir(path), c)
+			}
+			g.Carry = append(g.Carry, c)
+		}
 	}
 	var gs []Group
 	for _, n := range order {
@@ -173,6 +194,9 @@ type Input struct {
 	SHA256 string  `json:"sha256"`
 	Mass   float64 `json:"mass,omitempty"`
 	Weight float64 `json:"weight_given"` // as the manifest gives it; report.Input.Weight is normalised
+	// Role is "carry" for a carried field (its checksum is part of the
+	// resume key too), empty for an input.
+	Role string `json:"role,omitempty"`
 }
 
 type Row struct {
@@ -213,7 +237,7 @@ func UpToDate(dir string, inputs []Input, settings map[string]any) (*Report, boo
 		return nil, false
 	}
 	for i := range inputs {
-		if rep.Inputs[i].File != inputs[i].File || rep.Inputs[i].SHA256 != inputs[i].SHA256 || rep.Inputs[i].Weight != inputs[i].Weight {
+		if rep.Inputs[i] != (Input{File: inputs[i].File, SHA256: inputs[i].SHA256, Mass: rep.Inputs[i].Mass, Weight: inputs[i].Weight, Role: inputs[i].Role}) {
 			return nil, false
 		}
 	}
@@ -297,6 +321,13 @@ func Process(g Group, job Job) Row {
 		}
 		inputs[i] = Input{File: f, SHA256: sum, Weight: w}
 	}
+	for _, f := range g.Carry {
+		sum, err := Checksum(f)
+		if err != nil {
+			return fail(err)
+		}
+		inputs = append(inputs, Input{File: f, SHA256: sum, Role: "carry"})
+	}
 	final := filepath.Join(out, g.Name)
 	if rep, ok := UpToDate(final, inputs, settings); ok && !force {
 		row.Status, row.Seconds = "skipped", rep.Seconds["total"]
@@ -346,6 +377,21 @@ func Process(g Group, job Job) Row {
 	if r.Status != sinkhorn.Converged {
 		return fail(fmt.Errorf("barycenter did not converge: %s", r.Message))
 	}
+	var carried *grid.Field
+	if g.Carry != nil {
+		if len(g.Carry) != len(fs) {
+			return fail(fmt.Errorf("%d carried files for %d inputs", len(g.Carry), len(fs)))
+		}
+		cs := make([]*grid.Field, len(g.Carry))
+		for i, p := range g.Carry {
+			if cs[i], err = fieldfile.Load(p, ls); err != nil {
+				return fail(err)
+			}
+		}
+		if carried, err = sinkhorn.Carry(fs, cs, s, r); err != nil {
+			return fail(err)
+		}
+	}
 	tGauss := time.Now()
 	var gs []gaussfit.Gaussian
 	var mass float64
@@ -385,7 +431,11 @@ func Process(g Group, job Job) Row {
 		_, err := fieldfile.Save(filepath.Join(tmp, name), f, fieldfile.SaveSettings{Force: true})
 		return err
 	}
-	for name, f := range map[string]*grid.Field{"barycenter": r.Barycenter, "pixel_mean": mean, "gauss_barycenter": gfield} {
+	outs := map[string]*grid.Field{"barycenter": r.Barycenter, "pixel_mean": mean, "gauss_barycenter": gfield}
+	if carried != nil {
+		outs["carried"] = carried
+	}
+	for name, f := range outs {
 		if err := save(name+".npy", f, false); err != nil {
 			return fail(err)
 		}
@@ -410,6 +460,10 @@ func Process(g Group, job Job) Row {
 	row.Status, row.Seconds = "ok", time.Since(start).Seconds()
 	rep := Report{Group: g.Name, Status: "ok", Settings: settings, Inputs: inputs, Barycenter: &br, Gaussian: &gp,
 		Seconds: map[string]float64{"barycenter": baryTime, "gaussian": gaussTime, "total": row.Seconds}, Outputs: Outputs}
+	if carried != nil {
+		rep.Outputs = append(append([]string(nil), Outputs...), "carried.npy", "carried.png")
+		rep.Barycenter.CarryOutput = "carried.npy"
+	}
 	if err := report.WriteJSON(filepath.Join(tmp, "report.json"), true, rep); err != nil {
 		return fail(err)
 	}
