@@ -86,7 +86,9 @@ type Result struct {
 	// Canonical is the same barycenter in the canonical frame (principal
 	// axis along x, at the grid's centre), as the rounds built it.
 	Canonical *grid.Field
-	// Divergences of each input to the final canonical template.
+	// Divergences of each posed input to the final canonical template, as
+	// the search measures them (four times epsilon, 2 x 2 block sums on
+	// grids of 64 pixels a side or more).
 	Divergences []float64
 	// Barycenter is the last solve's result (status, iterations).
 	Barycenter *sinkhorn.Result
@@ -190,25 +192,16 @@ func Normalize(fs []*grid.Field, s Settings) (*Result, error) {
 		}
 		ds := make([][]float64, n)
 		errs := make([]error, n)
-		// The search compares poses, not templates: a smoother epsilon
-		// (four times the template's) and a looser tolerance tell the
-		// candidates apart at a fraction of the cost.
-		inner := s.Solver
-		inner.Workers, inner.Progress, inner.Weights = 1, nil, nil
-		inner.Epsilon = 4 * last.Epsilon
-		inner.Tol = math.Max(inner.Tol, 1e-4)
-		// and, on grids of 64 pixels a side or more, 2 x 2 block sums:
-		// a pose differs over the whole shape, not in its finest detail.
-		coarse := func(f *grid.Field) *grid.Field { return f }
-		if min(f0.Rows, f0.Cols) >= 64 {
-			coarse = halve
-		}
+		// The search compares poses, not templates (searchSettings,
+		// coarsener).
+		inner := searchSettings(s.Solver, last.Epsilon)
+		coarse := coarsener(f0)
 		ctemplate := coarse(template)
 		parallel.For(n, s.Solver.Workers, func(i int) {
 			ds[i] = make([]float64, len(cands))
 			for j, c := range cands {
 				f, _ := canon(i, c)
-				ds[i][j], _, errs[i] = sinkhorn.Divergence(coarse(f), ctemplate, inner)
+				ds[i][j], errs[i] = gap(coarse(f), ctemplate, inner)
 				if errs[i] != nil {
 					return
 				}
@@ -227,11 +220,11 @@ func Normalize(fs []*grid.Field, s Settings) (*Result, error) {
 			chosen[i] = cands[best]
 		}
 		// Then each angle by a pattern search on the divergence: steps of
-		// 4 degrees halved down to half a degree.
+		// 4 degrees (1 in later rounds) halved down to half a degree.
 		parallel.For(n, s.Solver.Workers, func(i int) {
 			div := func(e float64) float64 {
 				f, _ := place(fs[i], [2]float64(fits[i].Mean), centre, angleOf(axis[i], e, chosen[i].half), chosen[i].flip)
-				d, _, err := sinkhorn.Divergence(coarse(f), ctemplate, inner)
+				d, err := gap(coarse(f), ctemplate, inner)
 				if err != nil && errs[i] == nil {
 					errs[i] = err
 				}
@@ -239,7 +232,11 @@ func Normalize(fs []*grid.Field, s Settings) (*Result, error) {
 			}
 			e := extra[i]
 			de := div(e)
-			for h := 4.0; h >= 0.5; {
+			h0 := 4.0
+			if round > 0 {
+				h0 = 1 // refined already: only a nudge
+			}
+			for h := h0; h >= 0.5; {
 				lo, hi := div(e-h), div(e+h)
 				switch {
 				case lo < de && lo <= hi:
@@ -289,13 +286,48 @@ func Normalize(fs []*grid.Field, s Settings) (*Result, error) {
 	back, _ := placeInverse(tm, centre, [2]float64{cx, cy}, mean, flipMean)
 	res.Template = back
 	res.Divergences = make([]float64, n)
-	inner := s.Solver
-	inner.Workers, inner.Progress, inner.Weights = 1, nil, nil
+	inner := searchSettings(s.Solver, last.Epsilon)
+	coarse := coarsener(f0)
+	ct := coarse(template)
 	errs := make([]error, n)
 	parallel.For(n, s.Solver.Workers, func(i int) {
-		res.Divergences[i], _, errs[i] = sinkhorn.Divergence(res.Posed[i], template, inner)
+		res.Divergences[i], _, errs[i] = sinkhorn.Divergence(coarse(res.Posed[i]), ct, inner)
 	})
 	return res, errors.Join(errs...)
+}
+
+// gap is what the search minimises: the entropic transport cost from a
+// posed input to the template. The Sinkhorn divergence subtracts from it
+// half the template's self-cost, the same for every candidate, and half
+// the input's, which a turn or a mirror image does not change (up to the
+// grid): minimising the cost minimises the divergence, at a third of the
+// work.
+func gap(f, template *grid.Field, s sinkhorn.Settings) (float64, error) {
+	r, err := sinkhorn.Transport(f, template, s)
+	if err != nil {
+		return 0, err
+	}
+	return r.Cost, nil
+}
+
+// searchSettings are those of the pose search: a smoother epsilon (four
+// times the template's) and a looser tolerance tell poses apart at a
+// fraction of the cost.
+func searchSettings(s sinkhorn.Settings, eps float64) sinkhorn.Settings {
+	s.Workers, s.Progress, s.Weights = 1, nil, nil
+	s.Epsilon = 4 * eps
+	s.Tol = math.Max(s.Tol, 1e-4)
+	return s
+}
+
+// coarsener returns 2 x 2 block sums on grids of 64 pixels a side or more
+// (a pose differs over the whole shape, not in its finest detail), else
+// the identity.
+func coarsener(f *grid.Field) func(*grid.Field) *grid.Field {
+	if min(f.Rows, f.Cols) >= 64 {
+		return halve
+	}
+	return func(f *grid.Field) *grid.Field { return f }
 }
 
 // finish computes the template of already posed inputs (none, shift).
