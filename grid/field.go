@@ -223,3 +223,17 @@ func (l ReadLimits) Pixels() int {
 	}
 	return l.MaxPixels
 }
+
+// Identical reports whether two fields have the same shape and the same
+// values bit for bit (NaN equal to NaN): what a lossless round trip keeps.
+func Identical(a, b *Field) bool {
+	if a.Rows != b.Rows || a.Cols != b.Cols || len(a.Data) != len(b.Data) {
+		return false
+	}
+	for i := range a.Data {
+		if math.Float64bits(a.Data[i]) != math.Float64bits(b.Data[i]) {
+			return false
+		}
+	}
+	return true
+}

@@ -29,19 +29,8 @@ type tiffTags struct {
 // reports broken files; here a missing value only means no pixel size.
 func readTIFFTags(data []byte) tiffTags {
 	t := tiffTags{resUnit: 2}
-	if len(data) < 8 {
-		return t
-	}
-	var bo binary.ByteOrder
-	switch string(data[:2]) {
-	case "II":
-		bo = binary.LittleEndian
-	case "MM":
-		bo = binary.BigEndian
-	default:
-		return t
-	}
-	if bo.Uint16(data[2:]) != 42 {
+	bo := tiffOrder(data)
+	if bo == nil {
 		return t
 	}
 	off := int(bo.Uint32(data[4:]))
@@ -161,9 +150,9 @@ func lengthInCM(unit string) float64 {
 	return 0
 }
 
-// tiffPages returns the offsets of the IFDs of a TIFF, one per page, in
-// order (at most limit; a loop in the chain ends it).
-func tiffPages(data []byte, limit int) []uint32 {
+// tiffOrder returns a TIFF's byte order from its header, nil when the
+// header is not TIFF's.
+func tiffOrder(data []byte) binary.ByteOrder {
 	if len(data) < 8 {
 		return nil
 	}
@@ -174,6 +163,19 @@ func tiffPages(data []byte, limit int) []uint32 {
 	case "MM":
 		bo = binary.BigEndian
 	default:
+		return nil
+	}
+	if bo.Uint16(data[2:]) != 42 {
+		return nil
+	}
+	return bo
+}
+
+// tiffPages returns the offsets of the IFDs of a TIFF, one per page, in
+// order (at most limit; a loop in the chain ends it).
+func tiffPages(data []byte, limit int) []uint32 {
+	bo := tiffOrder(data)
+	if bo == nil {
 		return nil
 	}
 	var out []uint32
@@ -208,10 +210,6 @@ func ReadPage(data []byte, i int, s ReadSettings) (*grid.Field, error) {
 		return Read(data, s)
 	}
 	c := append([]byte(nil), data...)
-	if string(c[:2]) == "II" {
-		binary.LittleEndian.PutUint32(c[4:], pages[i])
-	} else {
-		binary.BigEndian.PutUint32(c[4:], pages[i])
-	}
+	tiffOrder(c).PutUint32(c[4:], pages[i])
 	return Read(c, s)
 }
