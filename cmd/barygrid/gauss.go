@@ -6,7 +6,6 @@ import (
 	"barygrid/io/gaussfile"
 	"barygrid/render"
 	"barygrid/report"
-	"encoding/json"
 	"fmt"
 	"gonum.org/v1/gonum/mat"
 	"image/png"
@@ -23,56 +22,6 @@ import (
 
 	"github.com/urfave/cli/v2"
 )
-
-// gaussianJSON is the interchange form of one Gaussian.
-type gaussianJSON struct {
-	Mean       []float64   `json:"mean"`
-	Covariance [][]float64 `json:"covariance"`
-	Weight     *float64    `json:"weight,omitempty"`
-}
-
-type gaussFile struct {
-	Gaussians []gaussianJSON `json:"gaussians"`
-}
-
-// gaussParams is written by --params.
-func readGaussians(path string) ([]gaussfit.Gaussian, []float64, error) {
-	data, err := os.ReadFile(path)
-	if err != nil {
-		return nil, nil, fmt.Errorf("%s: %v", path, unwrapErr(err))
-	}
-	var gf gaussFile
-	dec := json.NewDecoder(strings.NewReader(string(data)))
-	dec.DisallowUnknownFields()
-	if err := dec.Decode(&gf); err != nil {
-		return nil, nil, fmt.Errorf("%s: not a Gaussians file: %v", path, err)
-	}
-	if len(gf.Gaussians) == 0 {
-		return nil, nil, fmt.Errorf("%s: no Gaussians", path)
-	}
-	d := len(gf.Gaussians[0].Mean)
-	var gs []gaussfit.Gaussian
-	var ws []float64
-	for i, g := range gf.Gaussians {
-		if len(g.Mean) != d || d == 0 {
-			return nil, nil, fmt.Errorf("%s: Gaussian %d has a mean of length %d, want %d", path, i+1, len(g.Mean), d)
-		}
-		cov, err := gaussfit.CheckCov(g.Covariance, d)
-		if err != nil {
-			return nil, nil, fmt.Errorf("%s: Gaussian %d: %w", path, i+1, err)
-		}
-		w := 1.0
-		if g.Weight != nil {
-			w = *g.Weight
-			if !(w >= 0) {
-				return nil, nil, fmt.Errorf("%s: Gaussian %d has weight %g", path, i+1, w)
-			}
-		}
-		gs = append(gs, gaussfit.Gaussian{Mean: g.Mean, Cov: cov})
-		ws = append(ws, w)
-	}
-	return gs, ws, nil
-}
 
 func unwrapErr(err error) error {
 	if pe, ok := err.(*os.PathError); ok {
@@ -144,7 +93,7 @@ func gaussCommand() *cli.Command {
 			)
 			for _, p := range files {
 				if strings.EqualFold(filepath.Ext(p), ".json") {
-					g, w, err := readGaussians(p)
+					g, w, err := gaussfile.ReadFile(p)
 					if err != nil {
 						return err
 					}

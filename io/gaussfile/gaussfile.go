@@ -10,6 +10,7 @@ import (
 	"errors"
 	"fmt"
 	"io"
+	"os"
 	"strings"
 
 	"barygrid/gaussfit"
@@ -97,4 +98,64 @@ func ReadAll(src gaussfit.Source) ([]gaussfit.Gaussian, []float64, error) {
 		}
 		gs, ws = append(gs, g), append(ws, w)
 	}
+}
+
+// Entry is one Gaussian of a Gaussians file.
+type Entry struct {
+	Mean       []float64   `json:"mean"`
+	Covariance [][]float64 `json:"covariance"`
+	Weight     *float64    `json:"weight,omitempty"`
+}
+
+// File is a Gaussians file: {"gaussians": [...]}.
+type File struct {
+	Gaussians []Entry `json:"gaussians"`
+}
+
+// ReadFile reads a Gaussians file and returns the Gaussians (checked:
+// one dimension, symmetric positive-definite covariances) and their
+// weights (1 when absent). Errors name the file and the entry.
+func ReadFile(path string) ([]gaussfit.Gaussian, []float64, error) {
+	data, err := os.ReadFile(path)
+	if err != nil {
+		return nil, nil, fmt.Errorf("%s: %v", path, pathCause(err))
+	}
+	var gf File
+	dec := json.NewDecoder(strings.NewReader(string(data)))
+	dec.DisallowUnknownFields()
+	if err := dec.Decode(&gf); err != nil {
+		return nil, nil, fmt.Errorf("%s: not a Gaussians file: %v", path, err)
+	}
+	if len(gf.Gaussians) == 0 {
+		return nil, nil, fmt.Errorf("%s: no Gaussians", path)
+	}
+	d := len(gf.Gaussians[0].Mean)
+	var gs []gaussfit.Gaussian
+	var ws []float64
+	for i, g := range gf.Gaussians {
+		if len(g.Mean) != d || d == 0 {
+			return nil, nil, fmt.Errorf("%s: Gaussian %d has a mean of length %d, want %d", path, i+1, len(g.Mean), d)
+		}
+		cov, err := gaussfit.CheckCov(g.Covariance, d)
+		if err != nil {
+			return nil, nil, fmt.Errorf("%s: Gaussian %d: %w", path, i+1, err)
+		}
+		w := 1.0
+		if g.Weight != nil {
+			w = *g.Weight
+			if !(w >= 0) {
+				return nil, nil, fmt.Errorf("%s: Gaussian %d has weight %g", path, i+1, w)
+			}
+		}
+		gs = append(gs, gaussfit.Gaussian{Mean: g.Mean, Cov: cov})
+		ws = append(ws, w)
+	}
+	return gs, ws, nil
+}
+
+func pathCause(err error) error {
+	if pe, ok := err.(*os.PathError); ok {
+		return pe.Err
+	}
+	return err
 }
