@@ -109,7 +109,7 @@ func NewBarycenter(files []string, fs []*grid.Field, weights []float64, s sinkho
 	dx, dy := fs[0].PixelSize()
 	rep := Barycenter{Command: "barycenter", Iterations: r.Iterations, Residual: r.Residual, Seconds: r.Elapsed.Seconds(),
 		Epsilon: r.Epsilon, EpsilonGiven: s.Epsilon != 0, Converged: r.Status == sinkhorn.Converged, Status: r.Status.String(),
-		Message: r.Message, Debiased: r.Debiased, Method: r.Method.String(), Relax: r.Relax, Band: r.Band, Tol: r.Tol,
+		Message: r.Message, Debiased: r.Debiased, Method: r.Method.String(), Relax: r.Relax, Band: r.KernelHalfWidth, Tol: r.Tol,
 		MaxIter: r.MaxIter, PixelSize: [2]float64{dx, dy}, Unit: fs[0].Unit, Shape: [2]int{fs[0].Rows, fs[0].Cols},
 		Residuals: r.Residuals, DebiasViol: r.DebiasResidual, Levels: r.Levels, FinestIter: r.FinestIterations,
 		Stages: StagesOf(r.Stages)}

@@ -161,10 +161,10 @@ type Result struct {
 	Method Method
 	// Relax is the over-relaxation factor used at the end.
 	Relax float64
-	// Band is the scaling kernel's half-width in pixels in the last stage
+	// KernelHalfWidth is the scaling kernel's half-width in pixels in the last stage
 	// (the larger of the two axes; 0 when the last stage ran in the log
 	// domain).
-	Band int
+	KernelHalfWidth int
 	// Levels is the number of pyramid levels used (1: full grid only);
 	// Stages lists every epsilon stage in order.
 	Levels int
@@ -178,9 +178,9 @@ type Result struct {
 	Mass float64
 	// Warm holds the final potentials, to warm-start a related problem.
 	Warm *WarmStart
-	// Switched reports that MethodAuto moved a stage to the log domain
+	// FellBackToLog reports that MethodAuto moved a stage to the log domain
 	// after the scaling iteration failed there.
-	Switched bool
+	FellBackToLog bool
 }
 
 // WarmStart is the state a solve can start from: the potentials (epsilon

@@ -268,7 +268,7 @@ func (p *problem) solve() (*Result, iteration) {
 	if it != nil && res.Status != NumericalFailure {
 		lb := it.logB()
 		res.Barycenter = p.output(lb)
-		res.Band = it.band()
+		res.KernelHalfWidth = it.band()
 		res.Warm = &WarmStart{rows: p.rows, cols: p.cols, eps: p.eps, g: pot.g, d: pot.d}
 	}
 	if res.Status == NotTerminated {
@@ -313,7 +313,7 @@ func (rn *run) stage(lv *level, sp stagePlan, pot *potentials, tol float64, budg
 			relax = 1
 		case it.method() == MethodScaling && p.method == MethodAuto:
 			useScaling = false
-			res.Switched = true
+			res.FellBackToLog = true
 		default:
 			res.Status, res.Message = NumericalFailure, msg
 			return it, NumericalFailure
