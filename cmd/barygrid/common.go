@@ -131,6 +131,13 @@ func loadFields(c *cli.Context, files []string) ([]*grid.Field, []string, error)
 	if err := grid.SameShape(fs, files); err != nil {
 		return nil, nil, fmt.Errorf("%v (use --resample ROWSxCOLS)", err)
 	}
+	for i, f := range fs {
+		if f.Unit == "degrees" {
+			// Said plainly, once: distances in degrees are not distances.
+			fmt.Fprintf(os.Stderr, "note: %s: latitude-longitude grid kept in degrees (--degrees): the transport cost uses degrees, not km\n", labels[i])
+			break
+		}
+	}
 	return fs, labels, nil
 }
 
