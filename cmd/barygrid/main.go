@@ -5,6 +5,7 @@ package main
 
 import (
 	"barygrid/io/fieldfile"
+	"barygrid/io/netcdf"
 	"errors"
 	"fmt"
 	"os"
@@ -46,6 +47,9 @@ func run(args []string) (status int) {
 	msg = strings.ReplaceAll(msg, "\n", "; ")
 	if errors.Is(err, fieldfile.ErrExists) {
 		msg += " (use --force to replace it)"
+	}
+	if errors.Is(err, netcdf.ErrFill) {
+		msg += " (--fill-zero reads them as zero)"
 	}
 	fmt.Fprintf(os.Stderr, "barygrid: %s\n", msg)
 	var ue usageError

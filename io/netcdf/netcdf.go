@@ -23,8 +23,12 @@ import (
 	"barygrid/grid"
 )
 
-// ErrFormat reports a file this reader cannot take.
-var ErrFormat = errors.New("netcdf")
+// ErrFormat reports a file this reader cannot take; ErrFill, fill or
+// missing values that Settings.FillAsZero would read as zero.
+var (
+	ErrFormat = errors.New("netcdf")
+	ErrFill   = fmt.Errorf("%w: fill or missing value", ErrFormat)
+)
 
 // Settings choose what to read. The zero value reads the only 2-D-capable
 // variable, slice 0 along leading dimensions, and refuses fill values.
@@ -454,7 +458,7 @@ func Read(data []byte, s Settings) (*grid.Field, Info, error) {
 		}
 		if fill {
 			if !s.FillAsZero {
-				return nil, info, fmt.Errorf("%w: variable %q holds a fill or missing value at row %d, column %d (map them to zero to go on)", ErrFormat, v.name, i/int(cols), i%int(cols))
+				return nil, info, fmt.Errorf("%w in variable %q at row %d, column %d", ErrFill, v.name, i/int(cols), i%int(cols))
 			}
 			continue
 		}
