@@ -88,9 +88,13 @@ type Barycenter struct {
 	Unbalanced   float64       `json:"unbalanced_penalty,omitempty"`
 	Masked       bool          `json:"masked,omitempty"`
 	BaryMass     float64       `json:"barycenter_mass_in_input_units"`
-	Levels       int           `json:"levels"`
-	FinestIter   int           `json:"finest_level_iterations"`
-	Stages       []Stage       `json:"stages"`
+	// EntropicMass is the entropic solution's own mass, which falls as
+	// epsilon grows; BaryMass follows the unregularised rule instead (see
+	// sinkhorn.Result.Mass). Unbalanced only.
+	EntropicMass float64 `json:"entropic_mass_in_input_units,omitempty"`
+	Levels       int     `json:"levels"`
+	FinestIter   int     `json:"finest_level_iterations"`
+	Stages       []Stage `json:"stages"`
 	// Spread is the weighted mean squared transport distance of the inputs
 	// to the barycenter (squared physical units), when maps were asked for.
 	Spread float64 `json:"spread,omitempty"`
@@ -133,7 +137,7 @@ func NewBarycenter(files []string, fs []*grid.Field, weights []float64, s sinkho
 		}
 		rep.Inputs = append(rep.Inputs, in)
 	}
-	rep.Unbalanced, rep.Masked, rep.BaryMass = s.Unbalanced, s.Mask != nil, r.Mass
+	rep.Unbalanced, rep.Masked, rep.BaryMass, rep.EntropicMass = s.Unbalanced, s.Mask != nil, r.Mass, r.EntropicMass
 	if r.Barycenter != nil {
 		m := grid.ComputeMoments(r.Barycenter)
 		rep.Mass, rep.Centroid, rep.Covariance = m.Mass, m.Mean, m.Cov

@@ -7,6 +7,7 @@ import (
 	"time"
 
 	"barygrid/grid"
+	"barygrid/internal/parallel"
 )
 
 // Method selects the iteration.
@@ -173,9 +174,15 @@ type Result struct {
 	// input removed outside the mask (DropOutside).
 	InputMasses, Dropped []float64
 	// Mass is the barycenter's mass: 1 for balanced problems; for
-	// unbalanced ones the mass the formulation gives, in the units of the
-	// inputs (Barycenter itself is then scaled to that mass).
-	Mass float64
+	// unbalanced ones, in the units of the inputs, the mass the
+	// unregularised formulation gives for the shapes found (see
+	// unbalancedMass), and Barycenter itself is scaled to it. EntropicMass
+	// is the mass of the entropic solution itself, which falls as epsilon
+	// grows; MassCosts are the debiased transport costs (Sinkhorn
+	// divergences) from each normalised input to the normalised barycenter
+	// that enter Mass.
+	Mass, EntropicMass float64
+	MassCosts          []float64
 	// Warm holds the final potentials, to warm-start a related problem.
 	Warm *WarmStart
 	// FellBackToLog reports that MethodAuto moved a stage to the log domain
@@ -465,9 +472,9 @@ func Barycenter(fields []*grid.Field, s Settings) (*Result, error) {
 	res.InputMasses, res.Dropped = p.masses, p.dropped
 	res.Mass = 1
 	if p.lambda != 1 && res.Barycenter != nil {
-		// The iteration ran with inputs scaled by 1/m_1; its b has the
-		// mass the formulation gives in those units.
-		res.Mass = p.rawMass / p.refMass * (p.masses[0] - dropped(p.dropped, 0))
+		if err := p.unbalancedMass(res); err != nil {
+			return res, err
+		}
 		res.Barycenter = grid.Scale(res.Barycenter, res.Mass)
 	}
 	if res.Barycenter != nil {
@@ -500,4 +507,86 @@ func travel(a [][]float64, rows, cols int, dx, dy float64) float64 {
 		}
 	}
 	return worst
+}
+
+// unbalancedMass sets res.Mass to the mass that the unregularised
+// unbalanced barycenter would have for the shapes found. With plans of
+// shapes fixed, masses s_k and a barycenter of mass M, the objective
+// sum_k w_k [s_k C_k + rho KL(s_k a_k^ | m_k a_k^) + rho KL(s_k b^ | M b^)]
+// (C_k the transport cost per unit mass between the normalised input a_k^
+// and the normalised barycenter b^) is stationary at
+// s_k = sqrt(m_k M) exp(-C_k / (2 rho)) and M = sum_k w_k s_k, so
+//
+//	M = (sum_k w_k sqrt(m_k) exp(-C_k / (2 rho)))^2.
+//
+// For co-located inputs (C_k = 0) this is (sum_k w_k sqrt(m_k))^2, the
+// exact unregularised answer. C_k is estimated by the Sinkhorn divergence
+// at the solve's epsilon, which is zero for equal shapes and differs from
+// W2^2 by O(eps^2) (Feydy et al. 2019); the entropic solution's own mass,
+// kept in EntropicMass, instead falls with epsilon, because the entropy
+// prices every unit of plan mass (measured on co-located masses 1 and 3,
+// penalty 50: 1.10 at epsilon 8, 1.73 at 1, against 1.87).
+func (p *problem) unbalancedMass(res *Result) error {
+	// The iteration ran with inputs scaled by Z / m_1 (see setup).
+	res.EntropicMass = p.rawMass / p.refMass * (p.masses[0] - dropped(p.dropped, 0))
+	b := res.Barycenter.Data // unit mass
+	shapes := make([][]float64, len(p.a))
+	for k, a := range p.a {
+		var s float64
+		for _, x := range a {
+			s += x
+		}
+		shapes[k] = make([]float64, len(a))
+		for i, x := range a {
+			shapes[k][i] = x / s
+		}
+	}
+	// Jobs: the cross term of each input, each input's self term, b's self term.
+	n := len(p.a)
+	// The costs enter as exp(-C / (2 rho)): a tolerance of 1e-6 on unit
+	// masses is ample, whatever the barycenter's own tolerance and cap.
+	q := *p
+	q.tol, q.maxIter, q.method = math.Min(p.tol, 1e-6), 10000, MethodAuto
+	costs := make([]float64, 2*n+1)
+	errs := make([]error, 2*n+1)
+	parallel.For(2*n+1, p.workers, func(j int) {
+		var x, y []float64
+		switch {
+		case j < n:
+			x, y = shapes[j], b
+		case j < 2*n:
+			x, y = shapes[j-n], shapes[j-n]
+		default:
+			x, y = b, b
+		}
+		if p.w[j%n] == 0 && j < 2*n {
+			return
+		}
+		r, err := transport(&q, x, y, 0)
+		if err == nil && r.Status != Converged {
+			err = fmt.Errorf("sinkhorn: transport cost for the barycenter's mass: %s", r.Message)
+		}
+		if err == nil {
+			costs[j] = r.Cost
+		}
+		errs[j] = err
+	})
+	for _, e := range errs {
+		if e != nil {
+			return e
+		}
+	}
+	res.MassCosts = make([]float64, n)
+	var root float64
+	for k := range p.a {
+		if p.w[k] == 0 {
+			continue
+		}
+		c := math.Max(costs[k]-costs[n+k]/2-costs[2*n]/2, 0)
+		res.MassCosts[k] = c
+		mk := p.masses[k] - dropped(p.dropped, k)
+		root += p.w[k] * math.Sqrt(mk) * math.Exp(-c/(2*p.rho))
+	}
+	res.Mass = root * root
+	return nil
 }

@@ -22,6 +22,16 @@
 // whatever the range). MethodAuto picks the first where it is predicted
 // exact and falls back to the second when it sees it fail.
 //
+// Unbalanced (Settings.Unbalanced = rho > 0): the inputs keep their masses
+// and each plan P_k pays rho KL(P_k 1 | a_k) + rho KL(P_k^T 1 | b) instead
+// of meeting its marginals (Chizat, Peyre, Schmitzer, Vialard 2018), with
+// entropic reference the kernel divided by its total mass. The shape is
+// that problem's solution; the mass reported and given to the field is
+// the unregularised rule for that shape, M = (sum_k w_k sqrt(m_k)
+// exp(-C_k / (2 rho)))^2 with C_k the Sinkhorn divergence from input k to
+// the barycenter, because the entropic solution's own mass falls with
+// epsilon (Result.EntropicMass keeps it).
+//
 // Conventions: pixel (r, c) sits at x = c*dx, y = r*dy; epsilon is in the
 // cost's squared units; inputs are normalised to unit mass; the stopping
 // measure is the largest first-marginal violation max_k |u_k * K v_k - a_k|_1.

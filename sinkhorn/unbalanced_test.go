@@ -79,8 +79,17 @@ func TestUnbalancedMassOfScaledInputs(t *testing.T) {
 			s += w[k] * math.Pow(m[k], lam/(1+lam))
 		}
 		B := math.Pow(s, 1+lam)
-		if ratio := got.Mass / ref.Mass; math.Abs(ratio-B) > 1e-6*B {
-			t.Errorf("rho %g: mass ratio %.10g, formulation gives %.10g", rho, ratio, B)
+		if ratio := got.EntropicMass / ref.EntropicMass; math.Abs(ratio-B) > 1e-6*B {
+			t.Errorf("rho %g: entropic mass ratio %.10g, formulation gives %.10g", rho, ratio, B)
+		}
+		// The reported mass follows the unregularised rule for equal
+		// shapes: (sum_k w_k sqrt(m_k))^2 (see unbalancedMass).
+		var r float64
+		for k := range m {
+			r += w[k] * math.Sqrt(m[k])
+		}
+		if ratio := got.Mass / ref.Mass; math.Abs(ratio-r*r) > 1e-5*r*r {
+			t.Errorf("rho %g: mass ratio %.10g, unregularised rule gives %.10g", rho, ratio, r*r)
 		}
 		if math.Abs(got.Barycenter.Mass()-got.Mass) > 1e-9*got.Mass {
 			t.Errorf("returned field has mass %g, result says %g", got.Barycenter.Mass(), got.Mass)
@@ -241,6 +250,35 @@ func TestUnbalancedToleranceIndependent(t *testing.T) {
 		t.Logf("rho %g: %d and %d iterations, relative L1 %.2g, masses %.8g and %.8g", rho, out[0].Iterations, out[1].Iterations, l1, out[0].Mass, out[1].Mass)
 		if l1 > 1e-4 {
 			t.Errorf("rho %g: relative L1 %g between tolerances 1e-6 and 1e-8", rho, l1)
+		}
+	}
+}
+
+// The mass of the unbalanced barycenter does not follow epsilon. Two
+// co-located blobs of masses m = 1 and c = 3 (variance 9 px^2), penalty rho
+// = 50, equal weights. Without entropy a plan between m a and c a (same
+// shape a, no transport needed) of mass s costs
+// rho (s log(s/m) - s + m) + rho (s log(s/c) - s + c), smallest at
+// s = sqrt(m c) with value rho (sqrt m - sqrt c)^2; for the barycenter of
+// mass M, each plan k has mass sqrt(m_k M), and stationarity in M,
+// sum_k w_k (1 - sqrt(m_k M) / M) = 0, gives M = (sum_k w_k sqrt(m_k))^2 =
+// ((1 + sqrt 3) / 2)^2 = 1.866 (derived here; the Gaussian-free
+// case of Chizat, Peyre, Schmitzer, Vialard 2018's KL-relaxed problem).
+func TestUnbalancedMassAcrossEpsilon(t *testing.T) {
+	base, _ := grid.Normalize(gaussField(64, 64, 31.5, 31.5, 9))
+	fs := []*grid.Field{base, grid.Scale(base, 3)}
+	want := math.Pow((1+math.Sqrt(3))/2, 2)
+	for _, eps := range []float64{8, 4, 2, 1, 0.5} {
+		r, err := Barycenter(fs, Settings{Epsilon: eps, Unbalanced: 50})
+		if err != nil || r.Status != Converged {
+			t.Fatal(eps, err, r.Message)
+		}
+		t.Logf("eps %g: mass %.4f (entropic %.4f), costs %.3g; unregularised %.4f", eps, r.Mass, r.EntropicMass, r.MassCosts, want)
+		if math.Abs(r.Mass-want) > 0.03*want {
+			t.Errorf("eps %g: mass %.4f, unregularised %.4f", eps, r.Mass, want)
+		}
+		if math.Abs(r.Barycenter.Mass()-r.Mass) > 1e-9*r.Mass {
+			t.Errorf("eps %g: field has mass %g, result says %g", eps, r.Barycenter.Mass(), r.Mass)
 		}
 	}
 }
