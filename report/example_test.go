@@ -11,7 +11,7 @@ import (
 // Build the report a Go program writes beside its barycenter, with the
 // values the solver actually used.
 func ExampleNewBarycenter() {
-	a, b := grid.New(8, 8), grid.New(8, 8)
+	a, b := grid.New(24, 24), grid.New(24, 24)
 	a.Set(2, 2, 1)
 	b.Set(5, 6, 1)
 	s := sinkhorn.Settings{}

@@ -15,9 +15,9 @@ import (
 // One style of keys in every report: snake_case (common practice, no
 // source; the issue that asked for it found ellipse.Major among them).
 func TestKeysAreSnakeCase(t *testing.T) {
-	f := grid.New(8, 8)
+	f := grid.New(24, 24)
 	f.Set(3, 3, 1)
-	g := grid.New(8, 8)
+	g := grid.New(24, 24)
 	g.Set(4, 5, 1)
 	r, err := sinkhorn.Barycenter([]*grid.Field{f, g}, sinkhorn.Settings{Weights: []float64{1, 3}})
 	if err != nil {

@@ -210,11 +210,25 @@ func (w *WarmStart) fits(p *problem) bool {
 // is then about epsilon/2 in variance per axis, a standard deviation of 0.7
 // pixel, and its answer does not depend on when the loop stops (measured on
 // the demo's storm members and nuclei: tol 1e-6 against 1e-9, see the
-// tests). A larger epsilon gives a smoother, faster result.
+// tests). A larger epsilon gives a smoother, faster result. On grids under
+// 24 pixels a side it is (side/24)^2 squared pixel: on the 6 x 6 digits of
+// the exact-LP test one squared pixel puts the objective 27-41% above the
+// exact barycenter's, (6/24)^2 within 0.01%.
 func DefaultEpsilon(rows, cols int, dx, dy float64) float64 {
 	h := math.Max(dx, dy)
+	side := float64(min(rows, cols))
+	if rows == 1 || cols == 1 { // a 1-D field: its one axis
+		side = float64(max(rows, cols))
+	}
+	if side < smallSide {
+		h *= side / smallSide
+	}
 	return h * h
 }
+
+// smallSide: below this many pixels a side, a pixel is a large part of any
+// object on the grid, and the default epsilon shrinks with the side.
+const smallSide = 24
 
 // ErrInput reports an unusable set of inputs; ErrMask, a mask that does not
 // fit them (a subcase, so errors.Is(err, ErrInput) holds for both).

@@ -6,7 +6,7 @@
 // entropic transport and Sinkhorn divergence between two fields.
 //
 // By default the barycenter is the plain entropic one at a small epsilon
-// (one squared pixel): strictly convex, so it has one answer that the
+// (one squared pixel, less on grids under 24 pixels a side): strictly convex, so it has one answer that the
 // iteration reaches linearly, and blurred by less than a pixel. The
 // debiased barycenter (Janati, Cuturi, Gramfort, ICML 2020) is an option;
 // see Settings.Debias for where its fixed point is not smooth.

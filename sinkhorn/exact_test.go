@@ -152,7 +152,9 @@ func objective(t *testing.T, inputs [][]float64, w, b []float64, rows, cols int)
 // it at 0.1 squared pixel. Measured: gap 41%/27% (classes 3/7) at the
 // default one squared pixel, 1.2%/2.8% at 0.25 and 0.0%/0.35% at 0.1; the
 // objective of these similar digits is only 0.31 px^2, so the blur of even
-// a sub-pixel epsilon is a large part of it.
+// a sub-pixel epsilon is a large part of it, which is why the default
+// epsilon shrinks on grids under 24 pixels a side (gap 0.000%/0.03% with
+// two and three digits of class 3 at (6/24)^2).
 func TestDigitsExactLP(t *testing.T) {
 	for _, class := range []int{3, 7} {
 		in := readDigits(t, class)[:2]
@@ -177,6 +179,16 @@ func TestDigitsExactLP(t *testing.T) {
 		}
 		if prev > 0.01 {
 			t.Errorf("class %d: gap %.2f%% at epsilon 0.1, want within 1%%", class, 100*prev)
+		}
+		// The default on this 6 x 6 grid is (6/24)^2 squared pixel.
+		r, err := Barycenter(fs, Settings{Weights: w, Tol: 1e-9})
+		if err != nil || r.Status != Converged {
+			t.Fatalf("class %d default: %v %v", class, err, r.Message)
+		}
+		gap := (objective(t, in, w, r.Barycenter.Data, 6, 6) - opt) / opt
+		t.Logf("class %d default eps %g: %d iterations, gap %.3f%%", class, r.Epsilon, r.Iterations, 100*gap)
+		if gap > 0.01 {
+			t.Errorf("class %d: default gap %.2f%%, want within 1%%", class, 100*gap)
 		}
 	}
 }

@@ -139,6 +139,12 @@ func TestAgainstExactLPBarycenter(t *testing.T) {
 	if prev > 0.05*opt {
 		t.Errorf("at eps 0.25 the plain gap %g exceeds 5%% of the optimum %g", prev, opt)
 	}
+	// The default epsilon on this 4 x 4 grid, (4/24)^2 squared pixel.
+	if g := gap(0, true); g > 0.01*opt {
+		t.Errorf("default epsilon: gap %g is over 1%% of the optimum %g", g, opt)
+	} else {
+		t.Logf("default epsilon: gap %.4g", g)
+	}
 	for _, eps := range []float64{2, 1} {
 		gp, gd := gap(eps, true), gap(eps, false)
 		t.Logf("eps %.2f: plain gap %.4g, debiased gap %.4g", eps, gp, gd)

@@ -27,7 +27,7 @@ import (
 // runs Sinkhorn iterations.
 func solverFlags() []cli.Flag {
 	return []cli.Flag{
-		&cli.Float64Flag{Name: "epsilon", DefaultText: "one squared pixel", Usage: "smoothing, in squared physical units: the barycenter is blurred by about epsilon/2 in variance per axis; larger is smoother and faster"},
+		&cli.Float64Flag{Name: "epsilon", DefaultText: "one squared pixel; (side/24)^2 of it on grids under 24 pixels a side", Usage: "smoothing, in squared physical units: the barycenter is blurred by about epsilon/2 in variance per axis; larger is smoother and faster"},
 		&cli.Float64Flag{Name: "tol", Value: 1e-6, Usage: "stop when every input's transport plan matches the input to this fraction of its mass (first-marginal violation, L1)"},
 		&cli.IntFlag{Name: "max-iter", Value: 10000, Usage: "iteration cap"},
 		&cli.BoolFlag{Name: "debias", Usage: "remove the blur of a large epsilon (debiased barycenter); on thin structures its answer can grow streaks and it converges slowly, so it is off by default"},
