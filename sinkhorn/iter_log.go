@@ -72,6 +72,7 @@ func newLogIter(p *problem, lv *level, eps float64, pot *potentials) *logIter {
 	st.abs = make([]*absKernel, 2*K+1)
 	for i := range min(2*K+1, int(absorbBudget/absorbBytes(lv, eps))) {
 		st.abs[i] = newAbsKernel(st.k)
+		st.abs[i].fast = st.mode == nil
 	}
 	parallel.For(K, p.workers, func(k int) { st.conv(k, st.LKv[k], st.G[k], k) })
 	return st

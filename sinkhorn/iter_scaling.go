@@ -127,22 +127,26 @@ func (st *scalingIter) state() *potentials {
 	return pot
 }
 
-// relax returns target * (old/target)^(1-omega), the update
-// old^(1-omega) * target^omega written to need one log and one exp. The
-// extrapolation factor is kept within exp(+-maxStep): far from the solution
-// the scalings move by many orders of magnitude per step and an unbounded
-// extrapolation overshoots the float64 range. Near the solution the factor
-// is close to 1 and the bound is inactive, so the fixed point is unchanged.
+// relax returns target * g(old/target) with g the [1/1] Pade approximant
+// of x^c, c = 1 - omega, at x = 1:
+//
+//	g(x) = ((1 + c) x + (1 - c)) / ((1 - c) x + (1 + c)),
+//
+// in place of the over-relaxed update old^(1-omega) * target^omega. g has
+// the value 1 and the slope c of x^c at 1, so the fixed point and the
+// linear rate that sets omega are those of the power form (Young's theory
+// needs only the linearisation); far from the solution, where the scalings
+// move by orders of magnitude per step and the power form overshoots the
+// float64 range, g stays within [(1+c)/(1-c), (1-c)/(1+c)] (0.026 to 39 at
+// omega 1.95). It needs one division where the power form needed a log and
+// an exp (measured: they were 45% of a step at epsilon 16, 128^2).
 func relax(old, target, omega float64) float64 {
 	if omega == 1 || old <= 0 || target <= 0 {
 		return target
 	}
-	e := (1 - omega) * math.Log(old/target)
-	e = math.Max(-maxStep, math.Min(maxStep, e))
-	return target * math.Exp(e)
+	c := 1 - omega
+	return target * ((1+c)*old + (1-c)*target) / ((1-c)*old + (1+c)*target)
 }
-
-const maxStep = 2.0
 
 // step: the updates of Barycenter on scalings; b comes from the shared rule
 // (logMarginal) applied to log K u_k.
@@ -353,4 +357,12 @@ func (st *scalingIter) widen() {
 	}
 	st.k = newBandKernel(lv.rows, lv.cols, lv.dx, lv.dy, st.eps, c)
 	parallel.For(len(lv.a), st.p.workers, func(k int) { st.k.Apply(st.kv[k], st.v[k], st.tmp[k]) })
+}
+
+// exp is math.Exp, by expNeg's cheaper route inside its range.
+func exp(x float64) float64 {
+	if x >= -700 && x <= 700 {
+		return expNeg(x)
+	}
+	return math.Exp(x)
 }

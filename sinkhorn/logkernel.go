@@ -205,3 +205,36 @@ func transpose(dst, src []float64, rows, cols int) {
 		}
 	}
 }
+
+// logTab[j] = log(1 + j/64).
+var logTab = func() (t [64]float64) {
+	for j := range t {
+		t[j] = math.Log1p(float64(j) / 64)
+	}
+	return
+}()
+
+// fastLog returns log(x) for x > 0 (a few ulp, checked against math.Log in
+// TestFastLog): x = 2^e (1 + j/64) (1 + r) with 0 <= r < 1/64, log(1 + r) =
+// 2 atanh(s), s = r / (2 + r) < 1/128, from four terms of its series
+// (remainder below 1e-19). Zero, subnormal and non-finite x go to math.Log.
+func fastLog(x float64) float64 {
+	const (
+		ln2hi = 6.93147180369123816490e-01
+		ln2lo = 1.90821492927058770002e-10
+	)
+	b := math.Float64bits(x)
+	e := int(b>>52) & 0x7ff
+	if e == 0 || e == 0x7ff || b>>63 != 0 {
+		return math.Log(x)
+	}
+	j := int(b>>46) & 63
+	m := math.Float64frombits(b&(1<<52-1) | 1023<<52) // in [1, 2)
+	c := 1 + float64(j)/64
+	r := (m - c) / c
+	s := r / (2 + r)
+	s2 := s * s
+	l := 2 * s * (1 + s2*(1.0/3+s2*(1.0/5+s2*(1.0/7))))
+	k := float64(e - 1023)
+	return k*ln2hi + (logTab[j] + l + k*ln2lo)
+}
