@@ -84,10 +84,15 @@ type Barycenter struct {
 	Covariance   [2][2]float64 `json:"output_covariance"`
 	Residuals    []float64     `json:"residual_history,omitempty"`
 	DebiasViol   float64       `json:"debias_violation,omitempty"`
-	Ranking      []Rank        `json:"ranking,omitempty"`
-	Unbalanced   float64       `json:"unbalanced_penalty,omitempty"`
-	Masked       bool          `json:"masked,omitempty"`
-	BaryMass     float64       `json:"barycenter_mass_in_input_units"`
+	// With smoothed debiasing DebiasViol is the change of log d in the
+	// last iteration (the stopping measure) and DebiasEq the residual of
+	// d K d = b, which stays above the tolerance by design.
+	SmoothDebias bool    `json:"smooth_debias,omitempty"`
+	DebiasEq     float64 `json:"debias_equation_residual,omitempty"`
+	Ranking      []Rank  `json:"ranking,omitempty"`
+	Unbalanced   float64 `json:"unbalanced_penalty,omitempty"`
+	Masked       bool    `json:"masked,omitempty"`
+	BaryMass     float64 `json:"barycenter_mass_in_input_units"`
 	// EntropicMass is the entropic solution's own mass, which falls as
 	// epsilon grows; BaryMass follows the unregularised rule instead (see
 	// sinkhorn.Result.Mass). Unbalanced only.
@@ -115,7 +120,7 @@ func NewBarycenter(files []string, fs []*grid.Field, weights []float64, s sinkho
 		Epsilon: r.Epsilon, EpsilonGiven: s.Epsilon != 0, Converged: r.Status == sinkhorn.Converged, Status: r.Status.String(),
 		Message: r.Message, Debiased: r.Debiased, Method: r.Method.String(), Relax: r.Relax, Band: r.KernelHalfWidth, Tol: r.Tol,
 		MaxIter: r.MaxIter, PixelSize: [2]float64{dx, dy}, Unit: fs[0].Unit, Shape: [2]int{fs[0].Rows, fs[0].Cols},
-		Residuals: r.Residuals, DebiasViol: r.DebiasResidual, Levels: r.Levels, FinestIter: r.FinestIterations,
+		Residuals: r.Residuals, DebiasViol: r.DebiasResidual, DebiasEq: r.DebiasEquation, SmoothDebias: s.SmoothDebias, Levels: r.Levels, FinestIter: r.FinestIterations,
 		Stages: StagesOf(r.Stages)}
 	var wsum float64
 	for i := range fs {

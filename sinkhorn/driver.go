@@ -21,8 +21,11 @@ import (
 type iteration interface {
 	// step runs one round of updates and returns the first-marginal violation.
 	step(omega float64) float64
-	// debiasResidual is |d K d - b|_1 before the last d update (0 when plain).
+	// debiasResidual is |d K d - b|_1 before the last d update (0 when
+	// plain); with a smoothed d, the change of log d in the last update.
 	debiasResidual() float64
+	// debiasEquation is |d K d - b|_1 before the last d update.
+	debiasEquation() float64
 	// health returns "" while the representation is exact; strict asks for
 	// the safe range, not only for finite values.
 	health(strict bool) string
@@ -268,6 +271,9 @@ func (p *problem) solve() (*Result, iteration) {
 	if it != nil && res.Status != NumericalFailure {
 		lb := it.logB()
 		res.Barycenter = p.output(lb)
+		if p.debias {
+			res.DebiasEquation = it.debiasEquation()
+		}
 		res.KernelHalfWidth = it.band()
 		res.Warm = &WarmStart{rows: p.rows, cols: p.cols, eps: p.eps, g: pot.g, d: pot.d}
 	}

@@ -23,7 +23,8 @@ type logIter struct {
 	bw             []float64
 	l              [][]float64 // per chunk: log K u_k at one pixel
 	resid          []float64
-	dres           float64
+	dres, deq      float64
+	smooth         *dSmoother
 }
 
 // chunk is the pixel range of one task in the pixel-wise updates.
@@ -56,6 +57,9 @@ func newLogIter(p *problem, lv *level, eps float64, pot *potentials) *logIter {
 	}
 	st.lb = alloc()
 	if p.debias {
+		if p.smoothDebias {
+			st.smooth = newDSmoother(lv, eps)
+		}
 		st.ld, st.lkd = alloc(), alloc()
 		if pot != nil && pot.d != nil {
 			for i, x := range pot.d {
@@ -105,6 +109,7 @@ func absorbBytes(lv *level, eps float64) float64 {
 func (st *logIter) method() Method          { return MethodLog }
 func (st *logIter) band() int               { return 0 }
 func (st *logIter) debiasResidual() float64 { return st.dres }
+func (st *logIter) debiasEquation() float64 { return st.deq }
 func (st *logIter) health(bool) string      { return "" }
 func (st *logIter) logB() []float64         { return st.lb }
 
@@ -241,7 +246,8 @@ func (st *logIter) step(omega float64) float64 {
 	return r
 }
 
-// debias updates log d and records |d K d - b|_1 before the update.
+// debias updates log d and records |d K d - b|_1 before the update (with
+// smoothing: the change of log d, see dSmoother).
 func (st *logIter) debias() {
 	ninf := math.Inf(-1)
 	K := len(st.lv.a)
@@ -252,13 +258,23 @@ func (st *logIter) debias() {
 			v.add(math.Exp(st.ld[i]+st.lkd[i]), math.Exp(st.lb[i]))
 		}
 	}
-	st.dres = v.s
+	st.dres, st.deq = v.s, v.s
+	if st.smooth != nil {
+		st.smooth.save(st.ld)
+	}
 	for i := range st.ld {
 		if st.lb[i] == ninf || math.IsInf(st.lkd[i], 0) || math.IsNaN(st.lkd[i]) {
 			st.ld[i] = ninf
 			continue
 		}
 		st.ld[i] = 0.5 * (st.ld[i] + st.lb[i] - st.lkd[i])
+	}
+	if st.smooth != nil {
+		b := make([]float64, len(st.lb))
+		for i, x := range st.lb {
+			b[i] = math.Exp(x)
+		}
+		st.dres = st.smooth.apply(st.ld, b)
 	}
 }
 

@@ -38,8 +38,9 @@ type scalingIter struct {
 	full         *bandKernel // untruncated, for verify (built at the first check)
 	fullBuf      [][]float64 // scratch for verify
 	checks       []float64   // per input: truncation error, untruncated residual
-	dres         float64
+	dres, deq    float64
 	bad          []string
+	smooth       *dSmoother
 }
 
 // newScalingIter starts from the potentials, or returns nil when they do not
@@ -84,6 +85,9 @@ func newScalingIter(p *problem, lv *level, eps float64, pot *potentials) *scalin
 			d = pot.d
 		}
 		st.d, st.kd = expOf(d), alloc()
+		if p.smoothDebias {
+			st.smooth = newDSmoother(lv, eps)
+		}
 	}
 	for _, v := range append(st.v, st.d) {
 		for i, x := range v {
@@ -102,6 +106,7 @@ func newScalingIter(p *problem, lv *level, eps float64, pot *potentials) *scalin
 func (st *scalingIter) method() Method          { return MethodScaling }
 func (st *scalingIter) band() int               { return max(st.k.rx, st.k.ry) }
 func (st *scalingIter) debiasResidual() float64 { return st.dres }
+func (st *scalingIter) debiasEquation() float64 { return st.deq }
 
 func (st *scalingIter) logB() []float64 { return logOf(st.b) }
 
@@ -253,17 +258,28 @@ func (st *scalingIter) step(omega float64) float64 {
 	return r
 }
 
-// debias: d = sqrt(d b / K d), recording |d K d - b|_1 before the update.
+// debias: d = sqrt(d b / K d), recording |d K d - b|_1 before the update
+// (with smoothing: the change of log d, see dSmoother).
 func (st *scalingIter) debias() {
 	st.k.Apply(st.kd, st.d, st.tmp[len(st.lv.a)])
 	var v violation
+	if st.smooth != nil {
+		st.smooth.save(logOf(st.d))
+	}
 	for i, d := range st.d {
 		v.add(d*st.kd[i], st.b[i])
 		if st.kd[i] > 0 {
 			st.d[i] = math.Sqrt(d * st.b[i] / st.kd[i])
 		}
 	}
-	st.dres = v.s
+	st.dres, st.deq = v.s, v.s
+	if st.smooth != nil {
+		ld := logOf(st.d)
+		st.dres = st.smooth.apply(ld, st.b)
+		for i, x := range ld {
+			st.d[i] = math.Exp(x)
+		}
+	}
 }
 
 // health returns "" while every scaling is in the exact range.

@@ -30,7 +30,8 @@ func solverFlags() []cli.Flag {
 		&cli.Float64Flag{Name: "epsilon", DefaultText: "one squared pixel; (side/24)^2 of it on grids under 24 pixels a side", Usage: "smoothing, in squared physical units: the barycenter is blurred by about epsilon/2 in variance per axis; larger is smoother and faster"},
 		&cli.Float64Flag{Name: "tol", Value: 1e-6, Usage: "stop when every input's transport plan matches the input to this fraction of its mass (first-marginal violation, L1)"},
 		&cli.IntFlag{Name: "max-iter", Value: 10000, Usage: "iteration cap"},
-		&cli.BoolFlag{Name: "debias", Usage: "remove the blur of a large epsilon (debiased barycenter); on thin structures its answer can grow streaks and it converges slowly, so it is off by default"},
+		&cli.BoolFlag{Name: "debias", Usage: "remove the blur of a large epsilon (debiased barycenter, exact update); on thin structures its answer grows streaks as the iteration goes on and it converges slowly, so it is off by default"},
+		&cli.BoolFlag{Name: "smooth-debias", Usage: "debias with the debiasing field kept as smooth as the blur it undoes: no streaks, and it settles; the debiasing equation then holds only up to finer detail (the report gives both residuals)"},
 		&cli.StringFlag{Name: "method", Value: "auto", Usage: "how numbers are held: auto; scaling (fastest, fails when epsilon is small for the distances mass travels); log (log domain: always works, slower)"},
 		&cli.IntFlag{Name: "threads", DefaultText: "all CPUs", Usage: "worker goroutines (results do not depend on it)"},
 		&cli.Float64Flag{Name: "unbalanced", DefaultText: "off: every input is normalised to the same mass", Usage: "let total intensity differ between inputs: creating or destroying mass costs `RHO` (squared physical units) per unit of mass mismatch, moving it costs its squared distance (KL-relaxed marginals)"},
@@ -42,7 +43,7 @@ func solverFlags() []cli.Flag {
 
 func solverSettings(c *cli.Context) (sinkhorn.Settings, error) {
 	s := sinkhorn.Settings{Epsilon: c.Float64("epsilon"), Tol: c.Float64("tol"), MaxIter: c.Int("max-iter"),
-		Debias: c.Bool("debias"), Workers: c.Int("threads"), Relax: c.Float64("relax")}
+		Debias: c.Bool("debias"), SmoothDebias: c.Bool("smooth-debias"), Workers: c.Int("threads"), Relax: c.Float64("relax")}
 	s.Unbalanced = c.Float64("unbalanced")
 	if c.IsSet("unbalanced") && !(s.Unbalanced > 0) {
 		return s, usagef("--unbalanced must be positive, got %g", s.Unbalanced)
@@ -257,7 +258,7 @@ func barycenterCommand() *cli.Command {
 			}
 			fmt.Printf("barycenter of %d fields (%dx%d): %s after %d iterations, residual %.3g, epsilon %.4g%s, %s, %.2fs\n",
 				len(fs), fs[0].Rows, fs[0].Cols, r.Status, r.Iterations, r.Residual, r.Epsilon, unitSq(fs[0].Unit),
-				map[bool]string{true: "debiased", false: "plain"}[r.Debiased], r.Elapsed.Seconds())
+				debiasWord(r.Debiased, s.SmoothDebias), r.Elapsed.Seconds())
 			if r.Status != sinkhorn.Converged {
 				return fmt.Errorf("barycenter did not converge: %s", r.Message)
 			}
@@ -349,4 +350,15 @@ func writeMaps(dir string, force bool, files []string, bary *grid.Field, v *sink
 		unit = "px"
 	}
 	return fieldfile.SaveImage(filepath.Join(dir, "variability.png"), render.WithColorBar(v.Variability, unit, zoom), force)
+}
+
+// debiasWord names the barycenter computed, for the summary line.
+func debiasWord(debiased, smooth bool) string {
+	switch {
+	case smooth:
+		return "debiased (smooth)"
+	case debiased:
+		return "debiased"
+	}
+	return "plain"
 }

@@ -89,7 +89,7 @@ func runBatch(c *cli.Context) error {
 		return err
 	}
 	defer release()
-	settings := map[string]any{"epsilon_given": s.Epsilon, "tol": s.Tol, "max_iter": s.MaxIter, "debias": s.Debias,
+	settings := map[string]any{"epsilon_given": s.Epsilon, "tol": s.Tol, "max_iter": s.MaxIter, "debias": s.Debias, "smooth_debias": s.SmoothDebias,
 		"method": c.String("method"), "unbalanced": s.Unbalanced, "pixel_size": c.String("pixel-size"),
 		"invert": ls.Invert, "background": c.String("background"), "mask": c.String("mask"),
 		"relax": s.Relax, "drop_outside": s.DropOutside, "resample": c.String("resample"), "unit": ls.Unit}
