@@ -10,11 +10,18 @@ import (
 // Over-relaxation control: on a residual history contracting by rho per
 // iteration it sets omega = 2 / (1 + sqrt(1 - rho)), the optimal factor of
 // successive over-relaxation for a linear iteration of rate rho (Young
-// 1954), and when the residual then grows for good it falls back to plain
-// steps and stays there.
+// 1954), and when the residual then grows for good it backs off and
+// finally falls back to plain steps and stays there; without back-off
+// (unbalanced problems) at once.
 func TestRelaxationControl(t *testing.T) {
-	for _, rho := range []float64{0.7, 0.9, 0.97} {
+	for _, c := range []struct {
+		rho     float64
+		backOff bool
+		grow    int
+	}{{0.7, false, 60}, {0.9, false, 60}, {0.97, false, 60}, {0.9, true, 300}, {0.97, true, 300}} {
+		rho := c.rho
 		rl := newRelaxation(0)
+		rl.backOff = c.backOff
 		var hist []float64
 		r := 1.0
 		for i := 0; i < 40; i++ {
@@ -26,10 +33,13 @@ func TestRelaxationControl(t *testing.T) {
 		if math.Abs(rl.omega-want) > 1e-9 {
 			t.Errorf("rho %g: omega %g, want %g", rho, rl.omega, want)
 		}
-		for i := 0; i < 60; i++ {
+		for i := 0; i < c.grow; i++ {
 			r *= 1.1
 			hist = append(hist, r)
 			rl.update(hist)
+			if c.backOff && i == 30 && !(rl.omega > 1 && rl.omega < want) {
+				t.Errorf("rho %g: omega %g after the first growth, want between 1 and %g", rho, rl.omega, want)
+			}
 		}
 		if rl.omega != 1 || !rl.stopped {
 			t.Errorf("rho %g: after growth omega %g, stopped %v", rho, rl.omega, rl.stopped)
