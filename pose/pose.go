@@ -201,7 +201,7 @@ func Normalize(fs []*grid.Field, s Settings) (*Result, error) {
 			ds[i] = make([]float64, len(cands))
 			for j, c := range cands {
 				f, _ := canon(i, c)
-				ds[i][j], errs[i] = gap(coarse(f), ctemplate, inner)
+				ds[i][j], _, errs[i] = gap(coarse(f), ctemplate, inner)
 				if errs[i] != nil {
 					return
 				}
@@ -222,27 +222,37 @@ func Normalize(fs []*grid.Field, s Settings) (*Result, error) {
 		// Then each angle by a pattern search on the divergence: steps of
 		// 4 degrees (1 in later rounds) halved down to half a degree.
 		parallel.For(n, s.Solver.Workers, func(i int) {
+			// Neighbouring angles start from the potentials of the best
+			// angle so far: the input turned by a degree or less moves
+			// little mass.
+			var warm, tried *sinkhorn.WarmStart
 			div := func(e float64) float64 {
 				f, _ := place(fs[i], [2]float64(fits[i].Mean), centre, angleOf(axis[i], e, chosen[i].half), chosen[i].flip)
-				d, err := gap(coarse(f), ctemplate, inner)
+				is := inner
+				is.Warm = warm
+				d, w, err := gap(coarse(f), ctemplate, is)
 				if err != nil && errs[i] == nil {
 					errs[i] = err
 				}
+				tried = w
 				return d
 			}
 			e := extra[i]
 			de := div(e)
+			warm = tried
 			h0 := 4.0
 			if round > 0 {
 				h0 = 1 // refined already: only a nudge
 			}
 			for h := h0; h >= 0.5; {
-				lo, hi := div(e-h), div(e+h)
+				lo := div(e - h)
+				wlo := tried
+				hi := div(e + h)
 				switch {
 				case lo < de && lo <= hi:
-					e, de = e-h, lo
+					e, de, warm = e-h, lo, wlo
 				case hi < de:
-					e, de = e+h, hi
+					e, de, warm = e+h, hi, tried
 				default:
 					h /= 2
 				}
@@ -302,12 +312,12 @@ func Normalize(fs []*grid.Field, s Settings) (*Result, error) {
 // the input's, which a turn or a mirror image does not change (up to the
 // grid): minimising the cost minimises the divergence, at a third of the
 // work.
-func gap(f, template *grid.Field, s sinkhorn.Settings) (float64, error) {
+func gap(f, template *grid.Field, s sinkhorn.Settings) (float64, *sinkhorn.WarmStart, error) {
 	r, err := sinkhorn.Transport(f, template, s)
 	if err != nil {
-		return 0, err
+		return 0, nil, err
 	}
-	return r.Cost, nil
+	return r.Cost, r.Warm, nil
 }
 
 // searchSettings are those of the pose search: a smoother epsilon (four

@@ -577,7 +577,7 @@ func (p *problem) unbalancedMass(res *Result) error {
 	// The costs enter as exp(-C / (2 rho)): a tolerance of 1e-6 on unit
 	// masses is ample, whatever the barycenter's own tolerance and cap.
 	q := *p
-	q.tol, q.maxIter, q.method = math.Min(p.tol, 1e-6), 10000, MethodAuto
+	q.tol, q.maxIter, q.method, q.warm = math.Min(p.tol, 1e-6), 10000, MethodAuto, nil
 	costs := make([]float64, 2*n+1)
 	errs := make([]error, 2*n+1)
 	parallel.For(2*n+1, p.workers, func(j int) {

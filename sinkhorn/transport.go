@@ -27,19 +27,28 @@ type TransportResult struct {
 	Method           Method
 	Stages           []Stage
 	Elapsed          time.Duration
+	// Warm holds the final potentials, to warm-start a transport between
+	// similar fields (Settings.Warm).
+	Warm *WarmStart
 }
 
 // Transport solves the entropic OT problem between a and b (normalised to
 // unit mass) with Sinkhorn's iteration (Cuturi 2013) on the same driver as
 // Barycenter: coarse to fine, epsilon-scaling, the scaling representation
 // where it is exact and the log domain elsewhere. Only Epsilon, Tol,
-// MaxIter, Relax, Method, SingleScale and Workers of s are used.
+// MaxIter, Relax, Method, SingleScale, Workers and Warm of s are used; a
+// warm start (the Warm of an earlier transport on the same grid and
+// epsilon) runs only the last stage, from the earlier potentials. That pays
+// where the fields moved little (a pose search turning an input by a degree:
+// pose on 8 x 128^2 went from 14.5 to 12.6 s) and not where they moved
+// more (a shift of half a pixel at 48^2: 129 iterations either way).
 func Transport(a, b *grid.Field, s Settings) (*TransportResult, error) {
 	p, err := setup([]*grid.Field{a, b}, Settings{Epsilon: s.Epsilon, Tol: s.Tol, MaxIter: s.MaxIter, Relax: s.Relax,
 		Workers: s.Workers, Method: s.Method, SingleScale: s.SingleScale})
 	if err != nil {
 		return nil, err
 	}
+	p.warm = s.Warm
 	return transport(p, p.a[0], p.a[1], 0)
 }
 
@@ -59,7 +68,7 @@ func transport(base *problem, a, b []float64, rho float64) (*TransportResult, er
 	start := time.Now()
 	p := &problem{rows: base.rows, cols: base.cols, n: base.n, dx: base.dx, dy: base.dy, eps: base.eps,
 		tol: base.tol, maxIter: base.maxIter, workers: 1, method: base.method, singleScale: base.singleScale,
-		relax: base.relax, a: [][]float64{a}, target: b, w: []float64{1}, lambda: 1}
+		relax: base.relax, a: [][]float64{a}, target: b, w: []float64{1}, lambda: 1, warm: base.warm}
 	if rho > 0 {
 		p.rho, p.lambda, p.product = rho, rho/(rho+p.eps), true
 	} else {
@@ -70,7 +79,7 @@ func transport(base *problem, a, b []float64, rho float64) (*TransportResult, er
 	}
 	r, last := p.solve()
 	res := &TransportResult{Epsilon: p.eps, Tol: p.tol, Iterations: r.Iterations, FinestIterations: r.FinestIterations, Residual: r.Residual,
-		Status: r.Status, Message: r.Message, Method: r.Method, Stages: r.Stages}
+		Status: r.Status, Message: r.Message, Method: r.Method, Stages: r.Stages, Warm: r.Warm}
 	if r.Status == NumericalFailure {
 		return res, fmt.Errorf("sinkhorn: transport failed: %s", r.Message)
 	}
@@ -119,7 +128,7 @@ func Divergence(a, b *grid.Field, s Settings) (float64, []*TransportResult, erro
 	out := make([]*TransportResult, 3)
 	errs := make([]error, 3)
 	inner := s
-	inner.Workers = 1
+	inner.Workers, inner.Warm = 1, nil // three different problems
 	parallel.For(3, s.Workers, func(i int) {
 		out[i], errs[i] = Transport(pairs[i][0], pairs[i][1], inner)
 	})

@@ -87,3 +87,34 @@ func ot1d(a, b, eps float64) float64 {
 	mi := -0.5 * math.Log(1-rho*rho)
 	return a + b - 2*D + eps*mi
 }
+
+// A warm start from a transport between nearly the same fields reaches the
+// same cost (the problem is strictly convex: one optimum whatever the start,
+// Cuturi 2013), running only the last stage.
+func TestTransportWarmStart(t *testing.T) {
+	a, b := gaussField(48, 48, 20, 22, 16), gaussField(48, 48, 28, 25, 12)
+	a2 := gaussField(48, 48, 20.5, 22.3, 16)
+	s := Settings{Epsilon: 2, Tol: 1e-4}
+	first, err := Transport(a, b, s)
+	if err != nil || first.Status != Converged {
+		t.Fatal(err)
+	}
+	cold, err := Transport(a2, b, s)
+	if err != nil || cold.Status != Converged {
+		t.Fatal(err)
+	}
+	s.Warm = first.Warm
+	warm, err := Transport(a2, b, s)
+	if err != nil || warm.Status != Converged {
+		t.Fatal(err)
+	}
+	t.Logf("cold: %d iterations (%d on the full grid), warm: %d; costs %.10g and %.10g", cold.Iterations, cold.FinestIterations, warm.Iterations, cold.Cost, warm.Cost)
+	if math.Abs(cold.Cost-warm.Cost) > 1e-4*math.Abs(cold.Cost) {
+		t.Errorf("costs %.10g cold, %.10g warm", cold.Cost, warm.Cost)
+	}
+	for _, st := range warm.Stages {
+		if st.Level != 0 || st.Epsilon != 2 {
+			t.Errorf("warm start ran a stage at level %d, epsilon %g", st.Level, st.Epsilon)
+		}
+	}
+}
