@@ -5,6 +5,7 @@ import (
 	"sync"
 
 	"barygrid/internal/parallel"
+	"barygrid/sinkhorn"
 )
 
 // RunSettings of Run. The zero value runs as many groups at once as there
@@ -13,7 +14,7 @@ type RunSettings struct {
 	// Jobs bounds the groups computed at once; zero means the CPUs.
 	Jobs int
 	// Memory, when positive, bounds the estimated memory of the groups
-	// computed at once, in bytes: about nine float64 arrays per input pixel.
+	// computed at once, in bytes (sinkhorn.MemoryEstimate of the largest).
 	Memory float64
 	// Done, when set, is called after each group (from several goroutines
 	// one at a time is not promised: guard what it shares).
@@ -35,7 +36,7 @@ func Run(groups []Group, job Job, s RunSettings) []Row {
 	}
 	if s.Memory > 0 && worst > 0 {
 		if px := firstPixels(groups); px > 0 {
-			jobs = max(1, min(jobs, int(s.Memory/(worst*float64(px)*8*9))))
+			jobs = max(1, min(jobs, int(s.Memory/sinkhorn.MemoryEstimate(int(worst), 1, px))))
 		}
 	}
 	rows := make([]Row, len(groups))

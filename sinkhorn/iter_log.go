@@ -74,7 +74,11 @@ func newLogIter(p *problem, lv *level, eps float64, pot *potentials) *logIter {
 	// As many streams absorbed as the budget holds, the others not (same
 	// result, slower).
 	st.abs = make([]*absKernel, 2*K+1)
-	for i := range min(2*K+1, int(absorbBudget/absorbBytes(lv, eps))) {
+	streams := 2 * K
+	if p.debias {
+		streams++ // K d
+	}
+	for i := range min(streams, int(absorbBudget(K, p.n)/absorbBytes(lv, eps))) {
 		st.abs[i] = newAbsKernel(st.k)
 		st.abs[i].fast = st.mode == nil
 	}
@@ -92,11 +96,31 @@ func (st *logIter) conv(i int, dst, src []float64, task int) {
 }
 
 // absorbBudget bounds the memory of absorbed kernel instances in one
-// iteration; streams beyond it work without absorption (slower, same
-// result). With the other state of a solve (about ten arrays of the grid
-// per input, and the garbage of the stage before) it keeps 32 inputs of
-// 512^2 under 2 GiB (measured 2.7 GB with 1 GiB).
-const absorbBudget = 512 << 20
+// iteration of a solve with k inputs of n pixels; streams beyond it work
+// without absorption (slower, same result). What the rest of the solve
+// holds (stateBytes) comes off a total of 1.25 GiB, within 256 MiB to
+// 1 GiB: 32 inputs of 512^2 get 537 MB and stay under 2 GiB (measured 1.83
+// GB with 512 MiB, 2.7 GB with 1 GiB); 8 inputs of 256^2 get 1 GiB, which
+// absorbs all 16 streams of a plain barycenter at epsilon 16 (measured: 16 s
+// and 1.77 GB peak; with 512 MiB, 8 absorbed, 52 s; with 768 MiB, 12, 49 s:
+// the tasks of one step wait for the slowest stream).
+func absorbBudget(k, n int) float64 {
+	return min(max(1.25*(1<<30)-stateBytes(k, n), 256<<20), 1<<30)
+}
+
+// stateBytes is about what a solve holds besides absorbed kernels: a dozen
+// arrays of the full grid per input.
+func stateBytes(k, n int) float64 { return 12 * 8 * float64(k) * float64(n) }
+
+// MemoryEstimate is about the peak memory in bytes of a barycenter of k
+// inputs of rows x cols pixels: the iteration's arrays, the absorbed
+// kernels' budget and the garbage of the stage before (a factor measured on
+// 32 x 512^2: 1.83 GB). Batch runs use it to decide how many groups fit at
+// once.
+func MemoryEstimate(k, rows, cols int) float64 {
+	n := rows * cols
+	return 1.4 * (stateBytes(k, n) + absorbBudget(k, n))
+}
 
 // absorbBytes estimates one absorbed instance's memory on the level: the
 // window weights of both passes (about 2 sqrt(absorbDrop / c) + 1 per output
