@@ -81,23 +81,35 @@ func newAbsKernel(k *logKernel) *absKernel {
 	return a
 }
 
-// near reports whether src is within absorbMax of the reference and -Inf
-// exactly where it is.
-func (a *absKernel) near(src []float64) bool {
+// near reports whether src, less a constant c, is within absorbMax of the
+// reference, and -Inf exactly where it is; c is the midpoint of the range
+// of src - ref. The kernel commutes with constants (K(h + c) = K h + c in
+// the log domain), so a potential that drifts as a whole, as potentials do
+// while the iteration settles, needs no rebuild.
+func (a *absKernel) near(src []float64) (float64, bool) {
 	if !a.built {
-		return false
+		return 0, false
 	}
 	ninf := math.Inf(-1)
+	lo, hi := math.Inf(1), math.Inf(-1)
 	for i, x := range src {
 		r := a.ref[i]
 		if (x == ninf) != (r == ninf) {
-			return false
+			return 0, false
 		}
-		if x != ninf && !(math.Abs(x-r) <= absorbMax) {
-			return false
+		if x != ninf {
+			d := x - r
+			lo, hi = math.Min(lo, d), math.Max(hi, d)
 		}
 	}
-	return true
+	if math.IsInf(lo, 1) {
+		return 0, true
+	}
+	c := (lo + hi) / 2
+	if !((hi-lo)/2 <= absorbMax) || math.IsNaN(c) || math.IsInf(c, 0) {
+		return 0, false
+	}
+	return c, true
 }
 
 // rebuild computes the output for src exactly and keeps its windows.
@@ -121,7 +133,8 @@ func (a *absKernel) rebuild(dst, src []float64) {
 
 // apply writes the log-domain kernel of src to dst.
 func (a *absKernel) apply(dst, src []float64) {
-	if !a.near(src) {
+	shift, ok := a.near(src)
+	if !ok {
 		a.rebuild(dst, src)
 		return
 	}
@@ -130,7 +143,7 @@ func (a *absKernel) apply(dst, src []float64) {
 	for i, x := range src {
 		a.e[i] = 0
 		if x != ninf {
-			a.e[i] = expNeg(x - a.ref[i])
+			a.e[i] = expNeg(x - a.ref[i] - shift)
 		}
 	}
 	// Pass 1 along rows; its output goes transposed into s1, so that pass 2
@@ -149,9 +162,9 @@ func (a *absKernel) apply(dst, src []float64) {
 			s := dotWindow(a.p2.w[a.p2.off[o]:a.p2.off[o+1]], s1[a.p2.lo[o]:])
 			i := r*k.cols + c
 			if a.fast {
-				dst[i] = a.out0[i] + fastLog(s)
+				dst[i] = a.out0[i] + shift + fastLog(s)
 			} else {
-				dst[i] = a.out0[i] + math.Log(s)
+				dst[i] = a.out0[i] + shift + math.Log(s)
 			}
 		}
 	}
