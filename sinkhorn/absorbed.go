@@ -36,7 +36,11 @@ func (r *windows) reset() {
 
 // grow appends n weights and returns them to be filled.
 func (r *windows) grow(n int) []float64 {
-	r.w = append(r.w, make([]float64, n)...)
+	if len(r.w)+n <= cap(r.w) {
+		r.w = r.w[:len(r.w)+n] // lseLine writes every weight
+	} else {
+		r.w = append(r.w, make([]float64, n)...)
+	}
 	return r.w[len(r.w)-n:]
 }
 

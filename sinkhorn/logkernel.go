@@ -34,14 +34,15 @@ func newLogKernel(rows, cols int, dx, dy, eps float64) *logKernel {
 
 // lseScratch is one worker's scratch for the 1-D passes.
 type lseScratch struct {
-	v           []int
-	z, pre, suf []float64
-	jstar       []int
+	v               []int
+	z, pre, suf, ex []float64 // ex: the terms of the current output, by j
+	jstar           []int
 }
 
 func newLSEScratch(rows, cols int) *lseScratch {
 	n := max(rows, cols)
-	return &lseScratch{v: make([]int, n), z: make([]float64, n+1), pre: make([]float64, n), suf: make([]float64, n), jstar: make([]int, n)}
+	return &lseScratch{v: make([]int, n), z: make([]float64, n+1), pre: make([]float64, n), suf: make([]float64, n),
+		ex: make([]float64, n), jstar: make([]int, n)}
 }
 
 // apply writes the log-domain kernel of src to dst; tmp has their size.
@@ -125,6 +126,8 @@ func lseLine(out, h []float64, c, drop float64, s *lseScratch, rec *windows) {
 		d := fi - float64(js)
 		best := h[js] - c*d*d
 		sum := 1.0
+		ex := s.ex[:n]
+		ex[js] = 1
 		lo, hi := js, js
 		// Right of j*: once past i the distance only grows, so suf bounds
 		// everything further out.
@@ -135,7 +138,8 @@ func lseLine(out, h []float64, c, drop float64, s *lseScratch, rec *windows) {
 				break
 			}
 			if t := h[j] - cd - best; t > -drop {
-				sum += expNeg(t)
+				ex[j] = expNeg(t)
+				sum += ex[j]
 				hi = j
 			}
 		}
@@ -146,17 +150,20 @@ func lseLine(out, h []float64, c, drop float64, s *lseScratch, rec *windows) {
 				break
 			}
 			if t := h[j] - cd - best; t > -drop {
-				sum += expNeg(t)
+				ex[j] = expNeg(t)
+				sum += ex[j]
 				lo = j
 			}
 		}
 		out[i] = best + math.Log(sum)
 		if rec != nil {
+			// The terms kept in the sum, from ex (the same test picks them).
 			w := rec.grow(hi - lo + 1)
+			inv := 1 / sum
 			for j := lo; j <= hi; j++ {
 				d := float64(j) - fi
-				if t := h[j] - c*d*d - best; t > -drop {
-					w[j-lo] = expNeg(t) / sum
+				if t := h[j] - c*d*d - best; t > -drop || j == js {
+					w[j-lo] = ex[j] * inv
 				} else {
 					w[j-lo] = 0
 				}
