@@ -3,7 +3,8 @@
 # alternating, and prints the ratios and the L1 agreement with the peer.
 # P is the peer's plain barycenter at epsilon 16, tol 1e-6 (the yardstick of
 # the engine issue); barygrid runs plain at epsilon 16 and at its default
-# (epsilon one squared pixel).
+# (epsilon one squared pixel), and the distance command between the first two
+# fields at epsilon 4 (the engine issue's target: P/10).
 # Usage: bench/compare.sh [SIZE] [ROUNDS]   (needs ../shared and Debian's numpy)
 set -euo pipefail
 cd "$(dirname "$0")/.."
@@ -18,7 +19,8 @@ for round in $(seq "$rounds"); do
   P=$(t /usr/bin/python3 ../shared/bench/peer_barycenter.py --eps 16 --tol 1e-6 --out "$tmp/peer.npy" "$tmp"/f/field_*.npy)
   A=$(t "$tmp/barygrid" barycenter --epsilon 16 --tol 1e-6 --force --out "$tmp/ours16.npy" --report "$tmp/r16.json" "$tmp"/f/field_*.npy)
   B=$(t "$tmp/barygrid" barycenter --tol 1e-6 --force --out "$tmp/ours1.npy" --report "$tmp/r1.json" "$tmp"/f/field_*.npy)
-  echo "round $round, ${size}x${size}: P (peer, eps 16) $P s; barygrid eps 16 $A s (P/$(echo "scale=1; $P / $A" | bc)); default eps 1 px^2 $B s (P/$(echo "scale=2; $P / $B" | bc))"
+  D=$(t "$tmp/barygrid" distance --epsilon 4 "$tmp"/f/field_00.npy "$tmp"/f/field_01.npy)
+  echo "round $round, ${size}x${size}: P (peer, eps 16) $P s; barygrid eps 16 $A s (P/$(echo "scale=1; $P / $A" | bc)); default eps 1 px^2 $B s (P/$(echo "scale=2; $P / $B" | bc)); distance eps 4 $D s (P/$(echo "scale=1; $P / $D" | bc))"
 done
 /usr/bin/python3 - "$tmp" <<'PY'
 import json, sys, numpy as np
