@@ -100,8 +100,8 @@ type Settings struct {
 	// 41 km^2: L1 0.043 from the plain barycenter at 4 km^2 (the plain one
 	// at 41 km^2: 0.132), no streaks (total variation 0.3170 against that
 	// one's 0.3171; the exact update reaches 0.38 in 1000 iterations and
-	// keeps growing), and the same field to L1 3.5e-7 at tolerances 1e-6
-	// and 1e-9 (421 and 925 iterations).
+	// keeps growing), and the same field to L1 3.2e-8 at tolerances 1e-6
+	// and 1e-9 (403 and 527 iterations).
 	SmoothDebias bool
 	// Method chooses the representation; the zero value is MethodAuto.
 	Method Method

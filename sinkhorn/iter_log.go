@@ -294,11 +294,7 @@ func (st *logIter) debias() {
 		st.ld[i] = 0.5 * (st.ld[i] + st.lb[i] - st.lkd[i])
 	}
 	if st.smooth != nil {
-		b := make([]float64, len(st.lb))
-		for i, x := range st.lb {
-			b[i] = math.Exp(x)
-		}
-		st.dres = st.smooth.apply(st.ld, b)
+		st.dres = st.smooth.applyLog(st.ld, st.lb)
 	}
 }
 

@@ -264,7 +264,7 @@ func (st *scalingIter) debias() {
 	st.k.Apply(st.kd, st.d, st.tmp[len(st.lv.a)])
 	var v violation
 	if st.smooth != nil {
-		st.smooth.save(logOf(st.d))
+		st.smooth.saveScalings(st.d)
 	}
 	for i, d := range st.d {
 		v.add(d*st.kd[i], st.b[i])
@@ -274,11 +274,7 @@ func (st *scalingIter) debias() {
 	}
 	st.dres, st.deq = v.s, v.s
 	if st.smooth != nil {
-		ld := logOf(st.d)
-		st.dres = st.smooth.apply(ld, st.b)
-		for i, x := range ld {
-			st.d[i] = math.Exp(x)
-		}
+		st.dres = st.smooth.applyScalings(st.d, st.b)
 	}
 }
 
