@@ -5,6 +5,7 @@ import (
 	"io"
 	"math"
 
+	"barygrid/ensemble"
 	"barygrid/gaussfit"
 	"barygrid/grid"
 	"barygrid/io/fieldfile"
@@ -218,4 +219,60 @@ func WriteJSON(path string, force bool, v any) error {
 		enc.SetIndent("", "  ")
 		return enc.Encode(v)
 	})
+}
+
+// Field is one row of the "inspect" report: a field's grid, units and
+// moments. Its JSON names are part of the interface other tools read.
+type Field struct {
+	File      string     `json:"file"`
+	Rows      int        `json:"rows"`
+	Cols      int        `json:"cols"`
+	PixelSize [2]float64 `json:"pixel_size"`
+	Unit      string     `json:"unit"`
+	// PixelSizeSource: flag, tiff-resolution, ome, geotiff,
+	// netcdf-coordinates or default.
+	PixelSizeSource string        `json:"pixel_size_source"`
+	Note            string        `json:"note,omitempty"`
+	Mass            float64       `json:"mass"`
+	Min             float64       `json:"min"`
+	Max             float64       `json:"max"`
+	Centroid        [2]float64    `json:"centroid"`
+	Covariance      [2][2]float64 `json:"covariance"`
+}
+
+// NewField summarises field f, read from the file named name.
+func NewField(name string, f *grid.Field) Field {
+	m := grid.ComputeMoments(f)
+	lo, hi := f.MinMax()
+	dx, dy := f.PixelSize()
+	return Field{File: name, Rows: f.Rows, Cols: f.Cols, PixelSize: [2]float64{dx, dy}, Unit: f.Unit,
+		PixelSizeSource: f.PixelSizeSource, Mass: m.Mass, Min: lo, Max: hi, Centroid: m.Mean, Covariance: m.Cov}
+}
+
+// Distance is the report of one distance between two fields: a Sinkhorn
+// divergence (balanced or unbalanced, with the solver's epsilon, tolerance
+// and iterations of its three problems) or the Gaussian W2^2.
+type Distance struct {
+	A          string  `json:"a,omitempty"`
+	B          string  `json:"b,omitempty"`
+	Divergence float64 `json:"divergence,omitempty"`
+	W2Sq       float64 `json:"w2_squared,omitempty"`
+	Kind       string  `json:"kind"`
+	Epsilon    float64 `json:"epsilon,omitempty"`
+	Tol        float64 `json:"tol,omitempty"`
+	Unit       string  `json:"unit,omitempty"`
+	Iterations []int   `json:"iterations,omitempty"`
+	Unbalanced float64 `json:"unbalanced_penalty,omitempty"`
+}
+
+// NewDistance builds the report of d between the files a and b (unit: the
+// fields' physical unit) under solver settings s.
+func NewDistance(a, b, unit string, d ensemble.Distance, s sinkhorn.Settings) Distance {
+	o := Distance{A: a, B: b, Kind: d.Kind.String(), Unit: unit}
+	if d.Kind == ensemble.GaussianW2 {
+		o.W2Sq = d.Value
+		return o
+	}
+	o.Divergence, o.Epsilon, o.Tol, o.Iterations, o.Unbalanced = d.Value, d.Epsilon, s.Tol, d.Iterations, s.Unbalanced
+	return o
 }

@@ -5,6 +5,7 @@ import (
 	"regexp"
 	"testing"
 
+	"barygrid/ensemble"
 	"barygrid/gaussfit"
 	"barygrid/grid"
 	"barygrid/sinkhorn"
@@ -29,7 +30,8 @@ func TestKeysAreSnakeCase(t *testing.T) {
 		t.Fatal(err)
 	}
 	snake := regexp.MustCompile(`^[a-z][a-z0-9_]*$`)
-	for _, v := range []any{b, NewGaussian(gr, "fixed-point", 1)} {
+	d := NewDistance("a", "b", "um", ensemble.Distance{Value: 1, Kind: ensemble.SinkhornDivergence, Epsilon: 1, Iterations: []int{1, 2, 3}}, sinkhorn.Settings{Tol: 1e-6})
+	for _, v := range []any{b, NewGaussian(gr, "fixed-point", 1), NewField("a", f), d} {
 		data, _ := json.Marshal(v)
 		var m any
 		json.Unmarshal(data, &m)

@@ -95,19 +95,6 @@ func writeGIF(path string, force bool, frames []*grid.Field) error {
 	return fieldfile.WriteAtomic(path, force, func(w io.Writer) error { return gif.EncodeAll(w, anim) })
 }
 
-type distanceJSON struct {
-	A          string  `json:"a,omitempty"`
-	B          string  `json:"b,omitempty"`
-	Divergence float64 `json:"divergence,omitempty"`
-	W2Sq       float64 `json:"w2_squared,omitempty"`
-	Kind       string  `json:"kind"`
-	Epsilon    float64 `json:"epsilon,omitempty"`
-	Tol        float64 `json:"tol,omitempty"`
-	Unit       string  `json:"unit,omitempty"`
-	Iterations []int   `json:"iterations,omitempty"`
-	Unbalanced float64 `json:"unbalanced_penalty,omitempty"`
-}
-
 func distanceCommand() *cli.Command {
 	flags := append(inputFlags(), solverFlags()...)
 	flags = append(flags,
@@ -160,13 +147,7 @@ func distanceCommand() *cli.Command {
 					return err
 				}
 				if c.Bool("json") {
-					o := distanceJSON{A: files[0], B: files[1], Kind: d.Kind.String(), Unit: fs[0].Unit}
-					if d.Kind == ensemble.GaussianW2 {
-						o.W2Sq = d.Value
-					} else {
-						o.Divergence, o.Epsilon, o.Tol, o.Iterations, o.Unbalanced = d.Value, d.Epsilon, s.Tol, d.Iterations, s.Unbalanced
-					}
-					return json.NewEncoder(os.Stdout).Encode(o)
+					return json.NewEncoder(os.Stdout).Encode(report.NewDistance(files[0], files[1], fs[0].Unit, d, s))
 				}
 				fmt.Printf("%.10g\n", d.Value)
 				return nil

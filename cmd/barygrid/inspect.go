@@ -6,37 +6,11 @@ import (
 	"os"
 	"text/tabwriter"
 
-	"barygrid/grid"
 	"barygrid/io/fieldfile"
+	"barygrid/report"
 
 	"github.com/urfave/cli/v2"
 )
-
-// fieldSummary is one row of "inspect" (its JSON names are part of the
-// interface other tools read).
-type fieldSummary struct {
-	File      string     `json:"file"`
-	Rows      int        `json:"rows"`
-	Cols      int        `json:"cols"`
-	PixelSize [2]float64 `json:"pixel_size"`
-	Unit      string     `json:"unit"`
-	// PixelSizeSource: flag, tiff-resolution, ome, geotiff or default.
-	PixelSizeSource string        `json:"pixel_size_source"`
-	Note            string        `json:"note,omitempty"`
-	Mass            float64       `json:"mass"`
-	Min             float64       `json:"min"`
-	Max             float64       `json:"max"`
-	Centroid        [2]float64    `json:"centroid"`
-	Covariance      [2][2]float64 `json:"covariance"`
-}
-
-func summarize(name string, f *grid.Field) fieldSummary {
-	m := grid.ComputeMoments(f)
-	lo, hi := f.MinMax()
-	dx, dy := f.PixelSize()
-	return fieldSummary{File: name, Rows: f.Rows, Cols: f.Cols, PixelSize: [2]float64{dx, dy}, Unit: f.Unit,
-		PixelSizeSource: f.PixelSizeSource, Mass: m.Mass, Min: lo, Max: hi, Centroid: m.Mean, Covariance: m.Cov}
-}
 
 func inspectCommand() *cli.Command {
 	return withUsage(&cli.Command{
@@ -55,7 +29,7 @@ func inspectCommand() *cli.Command {
 				return err
 			}
 			s.SkipValidate = true
-			var rows []fieldSummary
+			var rows []report.Field
 			for _, p := range c.Args().Slice() {
 				planes, labels, err := fieldfile.LoadPlanes(p, s)
 				if err != nil {
@@ -65,7 +39,7 @@ func inspectCommand() *cli.Command {
 					if err := f.Validate(); err != nil {
 						return fmt.Errorf("%s: %w", labels[i], err)
 					}
-					row := summarize(labels[i], f)
+					row := report.NewField(labels[i], f)
 					if s.Dx > 0 {
 						// Say what the flag replaced, when the file has its own.
 						own := s
