@@ -23,8 +23,13 @@ type Field struct {
 	X0, Y0 float64
 	// PixelSizeSource says where Dx and Dy came from: "default" (unit
 	// pixels), "flag" (given by the user), or the file's own metadata
-	// ("tiff-resolution", "ome", "geotiff"). Empty means not recorded.
+	// ("tiff-resolution", "ome", "geotiff", "netcdf-coordinates"). Empty
+	// means not recorded.
 	PixelSizeSource string
+	// PixelSizeNote says how the file's metadata became Dx and Dy when
+	// that took a conversion a user should know of (latitude-longitude
+	// degrees to km at the domain's centre latitude); empty otherwise.
+	PixelSizeNote string
 }
 
 // New returns a zero field of the given shape with unit pixel size.

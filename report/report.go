@@ -246,7 +246,7 @@ func NewField(name string, f *grid.Field) Field {
 	lo, hi := f.MinMax()
 	dx, dy := f.PixelSize()
 	return Field{File: name, Rows: f.Rows, Cols: f.Cols, PixelSize: [2]float64{dx, dy}, Unit: f.Unit,
-		PixelSizeSource: f.PixelSizeSource, Mass: m.Mass, Min: lo, Max: hi, Centroid: m.Mean, Covariance: m.Cov}
+		PixelSizeSource: f.PixelSizeSource, Note: f.PixelSizeNote, Mass: m.Mass, Min: lo, Max: hi, Centroid: m.Mean, Covariance: m.Cov}
 }
 
 // Distance is the report of one distance between two fields: a Sinkhorn

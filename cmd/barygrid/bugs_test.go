@@ -339,6 +339,19 @@ func TestNetCDFInputs(t *testing.T) {
 	if code != 0 || !strings.Contains(out, `"pixel_size_source": "netcdf-coordinates"`) || !strings.Contains(out, `"max": 10.5`) {
 		t.Errorf("inspect: exit %d %s %s", code, out, errs)
 	}
+	// A latitude-longitude grid (ncgen, 1 by 1 degree around 60 N) is
+	// converted to km, and the command says so: the cost would otherwise
+	// be in degrees. 1 degree of latitude = 6371 pi / 180 = 111.19 km
+	// (mean Earth radius, standard), of longitude cos 60 of that.
+	ll := filepath.Join("..", "..", "testdata", "nc_latlon.nc")
+	code, _, errs = runCLI(t, "barycenter", "--out", filepath.Join(t.TempDir(), "ll.npy"), ll, ll)
+	if code != 0 || !strings.Contains(errs, "converted to km at latitude 60") || !strings.Contains(errs, "--degrees") {
+		t.Errorf("latitude-longitude: exit %d, %q", code, errs)
+	}
+	code, out, _ = runCLI(t, "inspect", "--json", ll)
+	if code != 0 || !strings.Contains(out, `"note": "latitude-longitude degrees converted to km at latitude 60"`) || !strings.Contains(out, "111.19") {
+		t.Errorf("inspect latitude-longitude: %s", out)
+	}
 	code, _, errs = runCLI(t, "inspect", filepath.Join("..", "..", "testdata", "nc_netcdf4.nc"))
 	if code != 1 || !strings.Contains(errs, "nccopy") || strings.Count(strings.TrimSpace(errs), "\n") != 0 {
 		t.Errorf("NetCDF-4: exit %d, %q", code, errs)

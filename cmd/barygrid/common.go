@@ -137,6 +137,14 @@ func loadFields(c *cli.Context, files []string) ([]*grid.Field, []string, error)
 			fmt.Fprintf(os.Stderr, "note: %s: latitude-longitude grid kept in degrees (--degrees): the transport cost uses degrees, not km\n", labels[i])
 			break
 		}
+		if f.PixelSizeNote != "" && f.PixelSizeSource == "netcdf-coordinates" {
+			hint := ""
+			if strings.Contains(f.PixelSizeNote, "converted to km") {
+				hint = " (--degrees keeps degrees)"
+			}
+			fmt.Fprintf(os.Stderr, "note: %s: %s%s\n", labels[i], f.PixelSizeNote, hint)
+			break
+		}
 	}
 	return fs, labels, nil
 }

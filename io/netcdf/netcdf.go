@@ -539,6 +539,7 @@ func (f *file) pixelSize(v *variable, out *grid.Field, info *Info, degrees bool)
 	}
 	out.Unit = info.PixelUnit
 	out.PixelSizeSource = "netcdf-coordinates"
+	out.PixelSizeNote = info.Note
 }
 
 // Planes lists the 2-D slices of the chosen variable: one index map per
