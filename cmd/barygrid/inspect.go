@@ -4,6 +4,7 @@ import (
 	"encoding/json"
 	"fmt"
 	"os"
+	"strings"
 	"text/tabwriter"
 
 	"barygrid/io/fieldfile"
@@ -70,7 +71,11 @@ func inspectCommand() *cli.Command {
 			}
 			for _, r := range rows {
 				if r.Note != "" {
-					fmt.Printf("note: %s: %s\n", r.File, r.Note)
+					hint := ""
+					if strings.Contains(r.Note, "converted to km") {
+						hint = " (--degrees keeps degrees)"
+					}
+					fmt.Printf("note: %s: %s%s\n", r.File, r.Note, hint)
 				}
 			}
 			return nil
