@@ -370,11 +370,3 @@ func (st *scalingIter) widen() {
 	st.k = newBandKernel(lv.rows, lv.cols, lv.dx, lv.dy, st.eps, c)
 	parallel.For(len(lv.a), st.p.workers, func(k int) { st.k.Apply(st.kv[k], st.v[k], st.tmp[k]) })
 }
-
-// exp is math.Exp, by expNeg's cheaper route inside its range.
-func exp(x float64) float64 {
-	if x >= -700 && x <= 700 {
-		return expNeg(x)
-	}
-	return math.Exp(x)
-}

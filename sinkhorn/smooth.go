@@ -18,17 +18,19 @@ import "math"
 // between tolerances 1e-6 and 1e-9, where the exact update still moved by
 // 0.05 in L1 between iterations 2000 and 4000).
 type dSmoother struct {
-	k             *bandKernel
-	x, m, km, tmp []float64
-	prev          []float64
-	buf           []float64 // for the iterations' conversions (log d, b)
+	k           *bandKernel
+	x, out, tmp []float64
+	m, km       []float64 // the finite pattern of log d and K m, kept while it holds
+	known       bool
+	prev        []float64
+	buf         []float64 // for the iterations' conversions (log d, b)
 }
 
 func newDSmoother(lv *level, eps float64) *dSmoother {
 	n := lv.n
 	return &dSmoother{k: newBandKernel(lv.rows, lv.cols, lv.dx, lv.dy, eps, 1e-17),
-		x: make([]float64, n), m: make([]float64, n), km: make([]float64, n), tmp: make([]float64, n), prev: make([]float64, n),
-		buf: make([]float64, n)}
+		x: make([]float64, n), out: make([]float64, n), tmp: make([]float64, n), m: make([]float64, n), km: make([]float64, n),
+		prev: make([]float64, n), buf: make([]float64, n)}
 }
 
 // save keeps log d before an update.
@@ -66,16 +68,25 @@ func (s *dSmoother) applyLog(ld, lb []float64) float64 {
 // apply averages ld in place and returns the b-weighted mean absolute
 // change of log d since save: sum_i b_i |log d_i - prev_i| / sum_i b_i.
 func (s *dSmoother) apply(ld, b []float64) float64 {
+	same := s.known
 	for i, x := range ld {
+		m := 1.0
 		if math.IsInf(x, 0) || math.IsNaN(x) {
-			s.x[i], s.m[i] = 0, 0
-			continue
+			m, x = 0, 0
 		}
-		s.x[i], s.m[i] = x, 1
+		s.x[i] = x
+		if s.m[i] != m {
+			s.m[i], same = m, false
+		}
 	}
-	s.k.Apply(s.km, s.m, s.tmp)
-	out := s.tmp
-	s.k.Apply(out, s.x, s.m) // s.m is free again as scratch
+	// K m changes only with the pattern (where b has mass): once per stage
+	// in practice, not once per iteration.
+	if !same {
+		s.k.Apply(s.km, s.m, s.tmp)
+		s.known = true
+	}
+	out := s.out
+	s.k.Apply(out, s.x, s.tmp)
 	var ch, ws float64
 	for i, x := range ld {
 		if math.IsInf(x, 0) || math.IsNaN(x) || !(s.km[i] > 0) {
