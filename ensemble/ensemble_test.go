@@ -2,6 +2,7 @@ package ensemble
 
 import (
 	"math"
+	"slices"
 	"testing"
 
 	"barygrid/grid"
@@ -48,8 +49,10 @@ func TestMatrixOfTranslates(t *testing.T) {
 }
 
 // Seven inputs close together and one displaced: Hampel's rule (median + 3
-// scaled MAD) flags exactly the displaced one, and the scores follow
-// (d - median) / (1.4826 MAD) for the divergences returned.
+// scaled MAD; Hampel 1974, 1.4826 = 1 / Phi^-1(3/4) makes the MAD consistent
+// for the normal standard deviation) flags exactly the displaced one, and
+// the scores follow (d - median) / (1.4826 MAD) for the divergences
+// returned, with the median taken here by sorting, not by the package.
 func TestRankFlagsTheDisplacedInput(t *testing.T) {
 	var fs []*grid.Field
 	for k := 0; k < 7; k++ {
@@ -68,12 +71,18 @@ func TestRankFlagsTheDisplacedInput(t *testing.T) {
 	for i, r := range rs {
 		ds[i] = r.Divergence
 	}
-	med := median(ds)
+	// Eight values: the median is the mean of the 4th and 5th smallest.
+	mid := func(x []float64) float64 {
+		y := slices.Clone(x)
+		slices.Sort(y)
+		return (y[3] + y[4]) / 2
+	}
+	med := mid(ds)
 	dev := make([]float64, len(ds))
 	for i, d := range ds {
 		dev[i] = math.Abs(d - med)
 	}
-	scale := 1.4826 * median(dev)
+	scale := 1.4826 * mid(dev)
 	for _, r := range rs {
 		if r.Outlier != (r.Index == 7) {
 			t.Errorf("input %d: outlier %v (divergence %.3g, score %.2f)", r.Index, r.Outlier, r.Divergence, r.Score)
