@@ -572,7 +572,8 @@ func (p *problem) unbalancedMass(res *Result) error {
 			shapes[k][i] = x / s
 		}
 	}
-	// Jobs: the cross term of each input, each input's self term, b's self term.
+	// Jobs: the cross term of each input, each input's self term, b's self
+	// term (once; K calls of Divergence would solve it K times).
 	n := len(p.a)
 	// The costs enter as exp(-C / (2 rho)): a tolerance of 1e-6 on unit
 	// masses is ample, whatever the barycenter's own tolerance and cap.

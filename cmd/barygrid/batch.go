@@ -4,7 +4,6 @@ import (
 	"fmt"
 	"os"
 	"path/filepath"
-	"runtime/debug"
 	"sync"
 
 	"barygrid/batch"
@@ -132,9 +131,7 @@ func runBatch(c *cli.Context) error {
 		}
 	}
 	job := batch.Job{Out: out, Load: ls, Resample: resample, Solver: s, Key: settings, Force: c.Bool("force")}
-	if mem := c.Float64("memory") * (1 << 30); mem > 0 && os.Getenv("GOMEMLIMIT") == "" {
-		debug.SetMemoryLimit(int64(max(mem, 19<<30/10)))
-	}
+	softMemoryLimit(c.Float64("memory") * (1 << 30))
 	rows := batch.Run(groups, job, batch.RunSettings{Jobs: c.Int("jobs"), Memory: c.Float64("memory") * (1 << 30), Done: done})
 	if err := batch.WriteSummary(filepath.Join(out, "summary.csv"), rows); err != nil {
 		return err

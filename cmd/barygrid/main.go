@@ -23,7 +23,7 @@ func usagef(format string, args ...any) error {
 }
 
 func main() {
-	softMemoryLimit()
+	softMemoryLimit(0)
 	os.Exit(run(os.Args))
 }
 
@@ -34,9 +34,11 @@ func main() {
 // collector pacing the garbage of earlier stages let the process grow past
 // 2 GB during a long full-grid stage. Above the limit the collector only
 // works harder; nothing fails.
-func softMemoryLimit() {
+//
+// bytes above 1.9 GiB raises the limit (batch's --memory).
+func softMemoryLimit(bytes float64) {
 	if os.Getenv("GOMEMLIMIT") == "" {
-		debug.SetMemoryLimit(19 << 30 / 10)
+		debug.SetMemoryLimit(int64(max(bytes, 19<<30/10)))
 	}
 }
 
