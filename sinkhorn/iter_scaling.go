@@ -291,9 +291,24 @@ func (st *scalingIter) health(strict bool) string {
 	parallel.For(len(lv.a), st.p.workers, func(k int) {
 		st.bad[k] = ""
 		u, v, kv := st.u[k], st.v[k], st.kv[k]
+		b := st.b
+		if lv.target != nil {
+			b = lv.target
+		}
 		for i, a := range lv.a[k] {
 			if a > 0 && !(kv[i] > lo) {
 				st.bad[k] = fmt.Sprintf("K v underflows (%.3g) at row %d, column %d of input %d", kv[i], i/lv.cols, i%lv.cols, k+1)
+				return
+			}
+			// A pixel with mass needs its scalings: one that underflowed to
+			// zero (an over-relaxed step on a pixel of tiny mass) made a
+			// transport's dual value -Inf (measured).
+			if a > 0 && !(u[i] > lo) {
+				st.bad[k] = fmt.Sprintf("u underflows (%.3g) at row %d, column %d of input %d", u[i], i/lv.cols, i%lv.cols, k+1)
+				return
+			}
+			if b != nil && b[i] > 0 && !(v[i] > lo) {
+				st.bad[k] = fmt.Sprintf("v underflows (%.3g) at row %d, column %d of input %d", v[i], i/lv.cols, i%lv.cols, k+1)
 				return
 			}
 			if !(u[i] <= hi) || !(v[i] <= hi) {
