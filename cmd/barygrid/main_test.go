@@ -392,3 +392,26 @@ func TestSmoothDebiasSettles(t *testing.T) {
 		t.Errorf("smoothed debiasing: L1 %.4f to the sharp barycenter, the plain one at the same epsilon %.4f", a, b)
 	}
 }
+
+// The demo's lightning belongs to its storm members: each member's flash
+// core lies just ahead of (at most 3 pixels from) that member's rain peak,
+// which it would not if the replayed random draws went astray.
+func TestDemoLightningFollowsMembers(t *testing.T) {
+	st, li := storm(8, 80, 2), lightning(8, 80, 2)
+	argmax := func(f *grid.Field) (int, int) {
+		j := 0
+		for i, x := range f.Data {
+			if x > f.Data[j] {
+				j = i
+			}
+		}
+		return j % f.Cols, j / f.Cols
+	}
+	for k := range st {
+		x1, y1 := argmax(st[k])
+		x2, y2 := argmax(li[k])
+		if d := math.Hypot(float64(x1-x2), float64(y1-y2)); d > 3 {
+			t.Errorf("member %d: rain peak (%d, %d), lightning peak (%d, %d)", k+1, x1, y1, x2, y2)
+		}
+	}
+}

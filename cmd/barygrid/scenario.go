@@ -4,7 +4,10 @@ import (
 	"math"
 	"math/rand/v2"
 
+	"barygrid/gaussfit"
 	"barygrid/grid"
+
+	"gonum.org/v1/gonum/mat"
 )
 
 // The demo scenario is invented and made by code: stained nuclei in a
@@ -73,6 +76,55 @@ func storm(n, size int, seed uint64) []*grid.Field {
 			}
 		}
 		out[k] = f
+	}
+	return out
+}
+
+// lightning returns the flash density (flashes per km^2 per hour) of the
+// members storm(n, size, seed) makes: a core narrower than the cell, a
+// little ahead of its rain peak, stronger where the cell rains harder. It
+// replays storm's random draws, so member k's lightning belongs to member
+// k's cell.
+func lightning(n, size int, seed uint64) []*grid.Field {
+	rng := rand.New(rand.NewPCG(seed, 11))
+	out := make([]*grid.Field, n)
+	for k := range out {
+		f := grid.New(size, size)
+		f.Dx, f.Dy, f.Unit = 2, 2, "km"
+		cx := float64(size)*0.45 + rng.NormFloat64()*float64(size)/10
+		cy := float64(size)*0.5 + rng.NormFloat64()*float64(size)/12
+		s := float64(size) * (0.05 + 0.02*rng.Float64())
+		peak := 40 + 25*rng.Float64()
+		_ = rng.NormFloat64() // the band's tilt
+		for r := 0; r < size; r++ {
+			for c := 0; c < size; c++ {
+				x, y := float64(c)-cx-0.4*s, float64(r)-cy
+				f.Set(r, c, peak/10*math.Exp(-(x*x+y*y)/(2*0.3*s*s)))
+			}
+		}
+		out[k] = f
+	}
+	return out
+}
+
+// screen returns n invented Gaussian fits of nuclei in a large screen
+// (um): centres spread over a 2 mm flow chamber, elongated covariances
+// roughly aligned with the flow, axis lengths that vary from cell to cell.
+func screen(n int, seed uint64) []gaussfit.Gaussian {
+	rng := rand.New(rand.NewPCG(seed, 13))
+	out := make([]gaussfit.Gaussian, n)
+	for i := range out {
+		a := 4 + 0.8*rng.NormFloat64()
+		b := a * (0.55 + 0.3*rng.Float64())
+		th := math.Pi/6 + 0.35*rng.NormFloat64() // aligned by the flow, +-20 degrees
+		c, s := math.Cos(th), math.Sin(th)
+		out[i] = gaussfit.Gaussian{
+			Mean: []float64{2000 * rng.Float64(), 2000 * rng.Float64()},
+			Cov: mat.NewSymDense(2, []float64{
+				a*a*c*c + b*b*s*s, (a*a - b*b) * c * s,
+				(a*a - b*b) * c * s, a*a*s*s + b*b*c*c,
+			}),
+		}
 	}
 	return out
 }
