@@ -1,7 +1,6 @@
 package pose
 
 import (
-	"math"
 	"math/rand/v2"
 	"testing"
 	"time"
@@ -22,18 +21,7 @@ func BenchmarkPose(b *testing.B) {
 	for range 32 {
 		a := rng.Float64()*360 - 180
 		cx, cy := 54+20*rng.Float64(), 54+20*rng.Float64()
-		f := grid.New(128, 128)
-		th := a * math.Pi / 180
-		c, s := math.Cos(th), math.Sin(th)
-		for r := 0; r < 128; r++ {
-			for q := 0; q < 128; q++ {
-				u, v := (float64(q)-cx)/2, -(float64(r)-cy)/2
-				u0, v0 := c*u+s*v, -s*u+c*v
-				body := math.Exp(-u0*u0/(2*36) - v0*v0/(2*5))
-				bump := 0.8 * math.Exp(-((u0-6)*(u0-6)+(v0-4)*(v0-4))/(2*3))
-				f.Set(r, q, body+bump)
-			}
-		}
+		f := scaledShape(128, cx, cy, a, false, 2)
 		fs = append(fs, f)
 	}
 	for b.Loop() {

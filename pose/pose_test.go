@@ -13,13 +13,18 @@ import (
 // mirrored first when flip, centred at (cx, cy): sampled from the formula,
 // not resampled, so that the test does not share the package's resampler.
 func shape(n int, cx, cy, angle float64, flip bool) *grid.Field {
+	return scaledShape(n, cx, cy, angle, flip, 1)
+}
+
+// scaledShape is shape enlarged by the factor scale.
+func scaledShape(n int, cx, cy, angle float64, flip bool, scale float64) *grid.Field {
 	f := grid.New(n, n)
 	th := angle * math.Pi / 180
 	c, s := math.Cos(th), math.Sin(th)
 	for r := 0; r < n; r++ {
 		for q := 0; q < n; q++ {
 			// Display frame of the pixel relative to the centre, turned back.
-			u, v := float64(q)-cx, -(float64(r) - cy)
+			u, v := (float64(q)-cx)/scale, -(float64(r)-cy)/scale
 			u0, v0 := c*u+s*v, -s*u+c*v
 			if flip {
 				v0 = -v0
