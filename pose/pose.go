@@ -242,10 +242,11 @@ func Normalize(fs []*grid.Field, s Settings) (*Result, error) {
 			chosen[i] = cands[best]
 		}
 		// Then each angle by successive parabolas through the divergence
-		// at three angles h apart (h = 4 degrees, then 1): near its minimum the divergence is smooth in the angle,
-		// and a parabola's vertex lands within a small fraction of h of it
-		// in three evaluations, where halving steps down to half a degree
-		// took ten or more.
+		// at three angles h apart (h = 4 degrees, then 1): near its
+		// minimum the divergence is smooth in the angle, and a parabola's
+		// vertex lands within a small fraction of h of it in three
+		// evaluations, where halving steps down to half a degree took ten
+		// or more.
 		parallel.For(n, s.Solver.Workers, func(i int) {
 			// Neighbouring angles start from the potentials of the centre
 			// angle: the input turned by a few degrees moves little mass.
