@@ -3,19 +3,18 @@ package main
 import (
 	"bufio"
 	"encoding/json"
-	"io"
-
-	"barygrid/batch"
-	"barygrid/gaussfit"
-	"barygrid/io/gaussfile"
-	"barygrid/pose"
 	"fmt"
+	"io"
 	"math"
 	"os"
 	"path/filepath"
 
+	"barygrid/batch"
+	"barygrid/gaussfit"
 	"barygrid/grid"
 	"barygrid/io/fieldfile"
+	"barygrid/io/gaussfile"
+	"barygrid/pose"
 	"barygrid/sinkhorn"
 
 	"github.com/urfave/cli/v2"
