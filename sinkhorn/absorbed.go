@@ -18,9 +18,20 @@ import "math"
 // exp(-absorbDrop + 4 absorbMax) = exp(-22), and the instance is rebuilt
 // (exactly) as soon as the input leaves that range or changes where it is
 // -Inf. TestAbsorbedKernel checks it against the full sum.
+//
+// The windows are the instance's memory (absorbBytes). Balanced problems
+// use a narrower pair, 40 and 4.5, with the same exp(-22): windows of 13
+// instead of 15 weights at epsilon one squared pixel, so that all 16
+// streams of 8 inputs of 512^2 fit the absorption budget (12 did, and the 4
+// others' exact sums made a full-grid iteration 3x slower). Unbalanced
+// problems keep 50 and 7: their slow mass mode amplifies the larger typical
+// truncation error (with the narrow pair, penalty 2e6 at tol 1e-8 stalled
+// at 1.9e-8).
 const (
 	absorbDrop = 50.0
 	absorbMax  = 7.0
+	narrowDrop = 40.0
+	narrowMax  = 4.5
 )
 
 // windows holds the weights of every output of a pass: output o's weights
@@ -55,14 +66,17 @@ func (r *windows) add(lo int, _ []float64) {
 
 // absKernel is one absorbed instance of a log kernel, for one stream of
 // inputs (for example K applied to G_k, iteration after iteration).
+//
+// Scratch (two grids and the 1-D pass scratch) comes from the caller, one
+// set per task, not per instance: an instance holds only its windows, its
+// reference and its output.
 type absKernel struct {
-	k                *logKernel
-	s                *lseScratch
-	ref, out0        []float64 // reference input and its output, row-major
-	p1, p2           windows   // pass 1 along rows, pass 2 along columns (transposed)
-	e, s1, tmp, tmp2 []float64
-	built            bool
-	builds           int
+	k         *logKernel
+	drop, max float64   // absorbDrop and absorbMax, or the narrow pair
+	ref, out0 []float64 // reference input and its output, row-major
+	p1, p2    windows   // pass 1 along rows, pass 2 along columns (transposed)
+	built     bool
+	builds    int
 	// fast takes the log by fastLog (2.1e-16 from math.Log). The slow mass
 	// mode of an unbalanced barycenter at a large penalty amplifies such
 	// errors by 1 / (1 - lambda^2) (measured: stalled at 5.6e-8 instead
@@ -70,14 +84,18 @@ type absKernel struct {
 	fast bool
 }
 
-func newAbsKernel(k *logKernel) *absKernel {
+// newAbsKernel returns an instance for a balanced problem (the table log
+// and the narrow windows) or not.
+func newAbsKernel(k *logKernel, balanced bool) *absKernel {
 	n := k.rows * k.cols
-	a := &absKernel{k: k, s: newLSEScratch(k.rows, k.cols), ref: make([]float64, n), out0: make([]float64, n),
-		e: make([]float64, n), s1: make([]float64, n), tmp: make([]float64, n), tmp2: make([]float64, n)}
+	a := &absKernel{k: k, ref: make([]float64, n), out0: make([]float64, n), drop: absorbDrop, max: absorbMax, fast: balanced}
+	if balanced {
+		a.drop, a.max = narrowDrop, narrowMax
+	}
 	// The windows' expected size up front: growing them by doubling left
 	// twice their size as garbage per instance and level (measured: 377 MB
 	// allocated in a 128^2 solve whose windows hold 63 MB).
-	window := func(c float64, line int) int { return n * min(line, int(2*math.Sqrt(absorbDrop/c))+1) }
+	window := func(c float64, line int) int { return n * min(line, int(2*math.Sqrt(a.drop/c))+1) }
 	a.p1.w = make([]float64, 0, window(k.cx, k.cols))
 	a.p2.w = make([]float64, 0, window(k.cy, k.rows))
 	a.p1.lo, a.p1.off = make([]int32, 0, n), make([]int32, 0, n+1)
@@ -119,57 +137,60 @@ func (a *absKernel) near(src []float64) (float64, bool) {
 		return 0, true
 	}
 	c := (lo + hi) / 2
-	if !((hi-lo)/2 <= absorbMax) || math.IsNaN(c) || math.IsInf(c, 0) {
+	if !((hi-lo)/2 <= a.max) || math.IsNaN(c) || math.IsInf(c, 0) {
 		return 0, false
 	}
 	return c, true
 }
 
-// rebuild computes the output for src exactly and keeps its windows.
-func (a *absKernel) rebuild(dst, src []float64) {
+// rebuild computes the output for src exactly and keeps its windows; tmp
+// and tmp2 are scratch grids.
+func (a *absKernel) rebuild(dst, src, tmp, tmp2 []float64, s *lseScratch) {
 	k := a.k
 	copy(a.ref, src)
 	a.p1.reset()
 	a.p2.reset()
 	for r := 0; r < k.rows; r++ {
-		lseLine(a.tmp[r*k.cols:(r+1)*k.cols], src[r*k.cols:(r+1)*k.cols], k.cx, absorbDrop, a.s, &a.p1)
+		lseLine(tmp[r*k.cols:(r+1)*k.cols], src[r*k.cols:(r+1)*k.cols], k.cx, a.drop, s, &a.p1)
 	}
-	transpose(a.tmp2, a.tmp, k.rows, k.cols)
+	transpose(tmp2, tmp, k.rows, k.cols)
 	for c := 0; c < k.cols; c++ {
-		lseLine(a.tmp[c*k.rows:(c+1)*k.rows], a.tmp2[c*k.rows:(c+1)*k.rows], k.cy, absorbDrop, a.s, &a.p2)
+		lseLine(tmp[c*k.rows:(c+1)*k.rows], tmp2[c*k.rows:(c+1)*k.rows], k.cy, a.drop, s, &a.p2)
 	}
-	transpose(a.out0, a.tmp, k.cols, k.rows)
+	transpose(a.out0, tmp, k.cols, k.rows)
 	copy(dst, a.out0)
 	a.built = true
 	a.builds++
 }
 
-// apply writes the log-domain kernel of src to dst.
-func (a *absKernel) apply(dst, src []float64) {
+// apply writes the log-domain kernel of src to dst; x1 and x2 are scratch
+// grids (not dst or src), s the 1-D passes' scratch.
+func (a *absKernel) apply(dst, src, x1, x2 []float64, s *lseScratch) {
 	shift, ok := a.near(src)
 	if !ok {
-		a.rebuild(dst, src)
+		a.rebuild(dst, src, x1, x2, s)
 		return
 	}
 	k := a.k
 	ninf := math.Inf(-1)
+	ee, s1all := x1[:len(src)], x2[:len(src)]
 	for i, x := range src {
-		a.e[i] = 0
+		ee[i] = 0
 		if x != ninf {
-			a.e[i] = expNeg(x - a.ref[i] - shift)
+			ee[i] = expNeg(x - a.ref[i] - shift)
 		}
 	}
 	// Pass 1 along rows; its output goes transposed into s1, so that pass 2
 	// reads contiguous columns.
 	for r := 0; r < k.rows; r++ {
-		e := a.e[r*k.cols : (r+1)*k.cols]
+		e := ee[r*k.cols : (r+1)*k.cols]
 		for c := 0; c < k.cols; c++ {
 			o := r*k.cols + c
-			a.s1[c*k.rows+r] = dotWindow(a.p1.w[a.p1.off[o]:a.p1.off[o+1]], e[a.p1.lo[o]:])
+			s1all[c*k.rows+r] = dotWindow(a.p1.w[a.p1.off[o]:a.p1.off[o+1]], e[a.p1.lo[o]:])
 		}
 	}
 	for c := 0; c < k.cols; c++ {
-		s1 := a.s1[c*k.rows : (c+1)*k.rows]
+		s1 := s1all[c*k.rows : (c+1)*k.rows]
 		for r := 0; r < k.rows; r++ {
 			o := c*k.rows + r
 			s := dotWindow(a.p2.w[a.p2.off[o]:a.p2.off[o+1]], s1[a.p2.lo[o]:])

@@ -16,7 +16,7 @@ type logIter struct {
 	k              *logKernel
 	F, G, LKv, LKu [][]float64
 	lb, ld, lkd    []float64
-	tmp            [][]float64
+	tmp, tmp2      [][]float64
 	scr            []*lseScratch
 	abs            []*absKernel // absorbed streams: K v_k, then K u_k, then K d; nil entries over budget
 	mode           *massMode    // unbalanced barycenters only
@@ -50,6 +50,7 @@ func newLogIter(p *problem, lv *level, eps float64, pot *potentials) *logIter {
 	}
 	for range K + 1 {
 		st.tmp = append(st.tmp, alloc())
+		st.tmp2 = append(st.tmp2, alloc())
 		st.scr = append(st.scr, newLSEScratch(lv.rows, lv.cols))
 	}
 	for range (lv.n + chunk - 1) / chunk {
@@ -78,9 +79,9 @@ func newLogIter(p *problem, lv *level, eps float64, pot *potentials) *logIter {
 	if p.debias {
 		streams++ // K d
 	}
-	for i := range min(streams, int(absorbBudget(K, p.n)/absorbBytes(lv, eps))) {
-		st.abs[i] = newAbsKernel(st.k)
-		st.abs[i].fast = st.mode == nil
+	balanced := st.mode == nil && p.rho == 0
+	for i := range min(streams, int(absorbBudget(K, p.n)/absorbBytes(lv, eps, balanced))) {
+		st.abs[i] = newAbsKernel(st.k, balanced)
 	}
 	parallel.For(K, p.workers, func(k int) { st.conv(k, st.LKv[k], st.G[k], k) })
 	return st
@@ -89,7 +90,7 @@ func newLogIter(p *problem, lv *level, eps float64, pot *potentials) *logIter {
 // conv applies the kernel of stream i (see abs) on task's scratch.
 func (st *logIter) conv(i int, dst, src []float64, task int) {
 	if st.abs[i] != nil {
-		st.abs[i].apply(dst, src)
+		st.abs[i].apply(dst, src, st.tmp[task], st.tmp2[task], st.scr[task])
 		return
 	}
 	st.k.apply(dst, src, st.tmp[task], st.scr[task])
@@ -123,11 +124,16 @@ func MemoryEstimate(k, rows, cols int) float64 {
 }
 
 // absorbBytes estimates one absorbed instance's memory on the level: the
-// window weights of both passes (about 2 sqrt(absorbDrop / c) + 1 per output
-// and axis), their indices and six arrays of the grid.
-func absorbBytes(lv *level, eps float64) float64 {
-	w := func(h float64) float64 { return 2*math.Sqrt(absorbDrop*eps)/h + 1 }
-	return float64(lv.n) * (8*(w(lv.dx)+w(lv.dy)) + 16 + 6*8)
+// window weights of both passes (about 2 sqrt(drop / c) + 1 per output
+// and axis), their indices, its reference and its output (its scratch comes
+// per task).
+func absorbBytes(lv *level, eps float64, balanced bool) float64 {
+	drop := absorbDrop
+	if balanced {
+		drop = narrowDrop
+	}
+	w := func(h float64) float64 { return 2*math.Sqrt(drop*eps)/h + 1 }
+	return float64(lv.n) * (8*(w(lv.dx)+w(lv.dy)) + 16 + 2*8)
 }
 
 func (st *logIter) method() Method          { return MethodLog }

@@ -163,35 +163,38 @@ func TestAbsorbedKernel(t *testing.T) {
 			h0[i] = math.Inf(-1)
 		}
 	}
-	a := newAbsKernel(newLogKernel(rows, cols, dx, dy, eps))
-	got := make([]float64, rows*cols)
-	worst := 0.0
-	// Drifts within absorbMax of the reference, after a constant offset
-	// (the kernel commutes with constants), reuse the windows.
-	for trial, c := range []struct{ amp, offset float64 }{{0, 0}, {1, 0}, {3, 0}, {6.9, 0}, {3, 40}, {6.9, -25}, {20, 0}} {
-		amp := c.amp
-		h := append([]float64(nil), h0...)
-		for i := range h {
-			if !math.IsInf(h[i], -1) {
-				h[i] += amp*(2*rng.Float64()-1) + c.offset
+	for _, balanced := range []bool{false, true} {
+		a := newAbsKernel(newLogKernel(rows, cols, dx, dy, eps), balanced)
+		got := make([]float64, rows*cols)
+		x1, x2, sc := make([]float64, rows*cols), make([]float64, rows*cols), newLSEScratch(rows, cols)
+		worst := 0.0
+		// Drifts within a.max of the reference, after a constant offset
+		// (the kernel commutes with constants), reuse the windows.
+		for trial, c := range []struct{ amp, offset float64 }{{0, 0}, {1, 0}, {3, 0}, {a.max - 0.1, 0}, {3, 40}, {a.max - 0.1, -25}, {20, 0}} {
+			amp := c.amp
+			h := append([]float64(nil), h0...)
+			for i := range h {
+				if !math.IsInf(h[i], -1) {
+					h[i] += amp*(2*rng.Float64()-1) + c.offset
+				}
+			}
+			before := a.builds
+			a.apply(got, h, x1, x2, sc)
+			want := denseLSE(h, rows, cols, dx, dy, eps)
+			for i := range got {
+				e := math.Abs(got[i] - want[i])
+				worst = math.Max(worst, e)
+				if e > 1e-12 {
+					t.Fatalf("balanced %v, trial %d (drift %g): pixel %d: %.15g, dense %.15g", balanced, trial, amp, i, got[i], want[i])
+				}
+			}
+			rebuilt := a.builds > before
+			if wantRebuild := trial == 0 || amp > a.max; rebuilt != wantRebuild {
+				t.Errorf("balanced %v, trial %d (drift %g): rebuilt %v", balanced, trial, amp, rebuilt)
 			}
 		}
-		before := a.builds
-		a.apply(got, h)
-		want := denseLSE(h, rows, cols, dx, dy, eps)
-		for i := range got {
-			e := math.Abs(got[i] - want[i])
-			worst = math.Max(worst, e)
-			if e > 1e-12 {
-				t.Fatalf("trial %d (drift %g): pixel %d: %.15g, dense %.15g", trial, amp, i, got[i], want[i])
-			}
-		}
-		rebuilt := a.builds > before
-		if wantRebuild := trial == 0 || amp > absorbMax; rebuilt != wantRebuild {
-			t.Errorf("trial %d (drift %g): rebuilt %v", trial, amp, rebuilt)
-		}
+		t.Logf("balanced %v: largest error in the log of an output: %.3g", balanced, worst)
 	}
-	t.Logf("largest error in the log of an output: %.3g", worst)
 }
 
 // fastLog against math.Log (the standard library's, an independent
