@@ -395,7 +395,7 @@ func TestSmoothDebiasSettles(t *testing.T) {
 
 // The demo's lightning belongs to its storm members: each member's flash
 // core lies just ahead of (at most 3 pixels from) that member's rain peak,
-// which it would not if the replayed random draws went astray.
+// which it would not if the two drew different cells.
 func TestDemoLightningFollowsMembers(t *testing.T) {
 	st, li := storm(8, 80, 2), lightning(8, 80, 2)
 	argmax := func(f *grid.Field) (int, int) {

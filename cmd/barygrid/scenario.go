@@ -44,20 +44,34 @@ func nuclei(n, size int, seed uint64) []*grid.Field {
 	return out
 }
 
+// stormCell is one ensemble member's convective cell (pixels; mm/h).
+type stormCell struct{ cx, cy, s, peak, tilt float64 }
+
+// stormCells draws the n members' cells on a size x size grid.
+func stormCells(n, size int, seed uint64) []stormCell {
+	rng := rand.New(rand.NewPCG(seed, 11))
+	out := make([]stormCell, n)
+	for k := range out {
+		out[k] = stormCell{
+			cx:   float64(size)*0.45 + rng.NormFloat64()*float64(size)/10,
+			cy:   float64(size)*0.5 + rng.NormFloat64()*float64(size)/12,
+			s:    float64(size) * (0.05 + 0.02*rng.Float64()),
+			peak: 40 + 25*rng.Float64(),
+			tilt: 0.5 + 0.3*rng.NormFloat64(),
+		}
+	}
+	return out
+}
+
 // storm returns n ensemble members of a rain-rate field (mm/h, 2 km pixels):
 // one convective cell whose position, size and peak rate vary between
 // members, embedded in weak stratiform rain, with a trailing band.
 func storm(n, size int, seed uint64) []*grid.Field {
-	rng := rand.New(rand.NewPCG(seed, 11))
 	out := make([]*grid.Field, n)
-	for k := range out {
+	for k, m := range stormCells(n, size, seed) {
 		f := grid.New(size, size)
 		f.Dx, f.Dy, f.Unit = 2, 2, "km"
-		cx := float64(size)*0.45 + rng.NormFloat64()*float64(size)/10
-		cy := float64(size)*0.5 + rng.NormFloat64()*float64(size)/12
-		s := float64(size) * (0.05 + 0.02*rng.Float64())
-		peak := 40 + 25*rng.Float64()
-		tilt := 0.5 + 0.3*rng.NormFloat64()
+		cx, cy, s, peak, tilt := m.cx, m.cy, m.s, m.peak, m.tilt
 		for r := 0; r < size; r++ {
 			for c := 0; c < size; c++ {
 				x, y := float64(c)-cx, float64(r)-cy
@@ -82,24 +96,16 @@ func storm(n, size int, seed uint64) []*grid.Field {
 
 // lightning returns the flash density (flashes per km^2 per hour) of the
 // members storm(n, size, seed) makes: a core narrower than the cell, a
-// little ahead of its rain peak, stronger where the cell rains harder. It
-// replays storm's random draws, so member k's lightning belongs to member
-// k's cell.
+// little ahead of its rain peak, stronger where the cell rains harder.
 func lightning(n, size int, seed uint64) []*grid.Field {
-	rng := rand.New(rand.NewPCG(seed, 11))
 	out := make([]*grid.Field, n)
-	for k := range out {
+	for k, m := range stormCells(n, size, seed) {
 		f := grid.New(size, size)
 		f.Dx, f.Dy, f.Unit = 2, 2, "km"
-		cx := float64(size)*0.45 + rng.NormFloat64()*float64(size)/10
-		cy := float64(size)*0.5 + rng.NormFloat64()*float64(size)/12
-		s := float64(size) * (0.05 + 0.02*rng.Float64())
-		peak := 40 + 25*rng.Float64()
-		_ = rng.NormFloat64() // the band's tilt
 		for r := 0; r < size; r++ {
 			for c := 0; c < size; c++ {
-				x, y := float64(c)-cx-0.4*s, float64(r)-cy
-				f.Set(r, c, peak/10*math.Exp(-(x*x+y*y)/(2*0.3*s*s)))
+				x, y := float64(c)-m.cx-0.4*m.s, float64(r)-m.cy
+				f.Set(r, c, m.peak/10*math.Exp(-(x*x+y*y)/(2*0.3*m.s*m.s)))
 			}
 		}
 		out[k] = f
