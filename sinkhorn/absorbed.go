@@ -67,9 +67,9 @@ func (r *windows) add(lo int, _ []float64) {
 // absKernel is one absorbed instance of a log kernel, for one stream of
 // inputs (for example K applied to G_k, iteration after iteration).
 //
-// Scratch (two grids and the 1-D pass scratch) comes from the caller, one
-// set per task, not per instance: an instance holds only its windows, its
-// reference and its output.
+// Scratch (a grid and the 1-D pass scratch) comes from the caller, one set
+// per task, not per instance, and the output grid serves as a second one:
+// an instance holds only its windows, its reference and its output.
 type absKernel struct {
 	k         *logKernel
 	drop, max float64   // absorbDrop and absorbMax, or the narrow pair
@@ -143,9 +143,10 @@ func (a *absKernel) near(src []float64) (float64, bool) {
 	return c, true
 }
 
-// rebuild computes the output for src exactly and keeps its windows; tmp
-// and tmp2 are scratch grids.
-func (a *absKernel) rebuild(dst, src, tmp, tmp2 []float64, s *lseScratch) {
+// rebuild computes the output for src exactly into dst (which is scratch
+// until then; dst is not src) and keeps its windows; tmp2 is scratch.
+func (a *absKernel) rebuild(dst, src, tmp2 []float64, s *lseScratch) {
+	tmp := dst
 	k := a.k
 	copy(a.ref, src)
 	a.p1.reset()
@@ -158,22 +159,24 @@ func (a *absKernel) rebuild(dst, src, tmp, tmp2 []float64, s *lseScratch) {
 		lseLine(tmp[c*k.rows:(c+1)*k.rows], tmp2[c*k.rows:(c+1)*k.rows], k.cy, a.drop, s, &a.p2)
 	}
 	transpose(a.out0, tmp, k.cols, k.rows)
-	copy(dst, a.out0)
+	copy(dst, a.out0) // dst held the first pass
 	a.built = true
 	a.builds++
 }
 
-// apply writes the log-domain kernel of src to dst; x1 and x2 are scratch
-// grids (not dst or src), s the 1-D passes' scratch.
-func (a *absKernel) apply(dst, src, x1, x2 []float64, s *lseScratch) {
+// apply writes the log-domain kernel of src to dst (not src); x is a
+// scratch grid, s the 1-D passes' scratch. The exponentials live in dst
+// until the second pass overwrites them: the first pass reads them all
+// before.
+func (a *absKernel) apply(dst, src, x []float64, s *lseScratch) {
 	shift, ok := a.near(src)
 	if !ok {
-		a.rebuild(dst, src, x1, x2, s)
+		a.rebuild(dst, src, x, s)
 		return
 	}
 	k := a.k
 	ninf := math.Inf(-1)
-	ee, s1all := x1[:len(src)], x2[:len(src)]
+	ee, s1all := dst[:len(src)], x[:len(src)]
 	for i, x := range src {
 		ee[i] = 0
 		if x != ninf {

@@ -59,12 +59,12 @@ func BenchmarkKernel(b *testing.B) {
 					src[r*128+c] = (-(x*x+y*y)/8 + 3*x) / eps
 				}
 			}
-			dst, x1, x2 := make([]float64, len(src)), make([]float64, len(src)), make([]float64, len(src))
+			dst, x := make([]float64, len(src)), make([]float64, len(src))
 			sc := newLSEScratch(128, 128)
-			a.apply(dst, src, x1, x2, sc)
+			a.apply(dst, src, x, sc)
 			src[0] += 1
 			for b.Loop() {
-				a.apply(dst, src, x1, x2, sc)
+				a.apply(dst, src, x, sc)
 			}
 		})
 	}

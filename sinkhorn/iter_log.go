@@ -16,7 +16,7 @@ type logIter struct {
 	k              *logKernel
 	F, G, LKv, LKu [][]float64
 	lb, ld, lkd    []float64
-	tmp, tmp2      [][]float64
+	tmp            [][]float64
 	scr            []*lseScratch
 	abs            []*absKernel // absorbed streams: K v_k, then K u_k, then K d; nil entries over budget
 	mode           *massMode    // unbalanced barycenters only
@@ -50,7 +50,6 @@ func newLogIter(p *problem, lv *level, eps float64, pot *potentials) *logIter {
 	}
 	for range K + 1 {
 		st.tmp = append(st.tmp, alloc())
-		st.tmp2 = append(st.tmp2, alloc())
 		st.scr = append(st.scr, newLSEScratch(lv.rows, lv.cols))
 	}
 	for range (lv.n + chunk - 1) / chunk {
@@ -88,9 +87,10 @@ func newLogIter(p *problem, lv *level, eps float64, pot *potentials) *logIter {
 }
 
 // conv applies the kernel of stream i (see abs) on task's scratch.
+// dst is never src (the absorbed kernel uses dst as scratch).
 func (st *logIter) conv(i int, dst, src []float64, task int) {
 	if st.abs[i] != nil {
-		st.abs[i].apply(dst, src, st.tmp[task], st.tmp2[task], st.scr[task])
+		st.abs[i].apply(dst, src, st.tmp[task], st.scr[task])
 		return
 	}
 	st.k.apply(dst, src, st.tmp[task], st.scr[task])
