@@ -5,9 +5,10 @@
 // for a few rounds, and the template is returned in the mean pose of the
 // inputs.
 //
-// Resampling splats each pixel's mass bilinearly onto the four pixels
-// around its new position, which conserves mass exactly (except for mass
-// carried off the grid, reported).
+// Resampling takes each output pixel by bilinear interpolation at its
+// pre-image (a rigid motion keeps areas) and scales the result to the mass
+// that stays on the grid, so that mass is conserved exactly except for what
+// is carried off the grid (reported).
 //
 // Angles are counter-clockwise as the field is displayed (rows pointing
 // down), in degrees.

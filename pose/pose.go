@@ -431,7 +431,7 @@ func place(f *grid.Field, from, to [2]float64, angle float64, flip bool) (*grid.
 	// turning by +angle clockwise.
 	th := -angle * math.Pi / 180
 	c, s := math.Cos(th), math.Sin(th)
-	return splat(f, func(x, y float64) (float64, float64) {
+	return moveRigid(f, func(x, y float64) (float64, float64) {
 		u, v := x-from[0], -(y - from[1])
 		if flip {
 			// Mirror across the shape's own axis after turning: the same as
@@ -449,7 +449,7 @@ func place(f *grid.Field, from, to [2]float64, angle float64, flip bool) (*grid.
 func placeInverse(f *grid.Field, from, to [2]float64, angle float64, flip bool) (*grid.Field, float64) {
 	th := angle * math.Pi / 180
 	c, s := math.Cos(th), math.Sin(th)
-	return splat(f, func(x, y float64) (float64, float64) {
+	return moveRigid(f, func(x, y float64) (float64, float64) {
 		u, v := x-from[0], -(y - from[1])
 		if flip {
 			v = -v
@@ -459,16 +459,16 @@ func placeInverse(f *grid.Field, from, to [2]float64, angle float64, flip bool) 
 	})
 }
 
-// splat moves f by the rigid motion T (physical units). Each output pixel
+// moveRigid moves f by the rigid motion T (physical units). Each output pixel
 // takes the bilinear interpolation of f at the pre-image of its centre: a
 // rigid motion keeps areas, so the density carries over as it is. The result
 // is then scaled to the mass that stays on the grid, counted exactly by
 // sharing every input pixel's mass among the four pixels around its image
 // (that sharing alone, used as the resampler, left a moire of up to 17% of
-// the peak where turned pixels fall unevenly on the grid, TestSplatRigid,
+// the peak where turned pixels fall unevenly on the grid, TestMoveRigid,
 // visible in the templates). It
 // returns the moved field and the fraction of mass that left the grid.
-func splat(f *grid.Field, T func(x, y float64) (float64, float64)) (*grid.Field, float64) {
+func moveRigid(f *grid.Field, T func(x, y float64) (float64, float64)) (*grid.Field, float64) {
 	dx, dy := f.PixelSize()
 	// T is affine: its coefficients from three points, in pixel units.
 	ox, oy := T(0, 0)

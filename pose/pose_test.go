@@ -129,7 +129,7 @@ func TestRotatedCopies(t *testing.T) {
 // sampled at the new place everywhere, without the moire a forward
 // sharing of pixel masses leaves (measured: 0.17 of the peak), and keep
 // its mass exactly when none leaves the grid.
-func TestSplatRigid(t *testing.T) {
+func TestMoveRigid(t *testing.T) {
 	const n = 64
 	gauss := func(cx, cy, angle float64) *grid.Field {
 		f := grid.New(n, n)
