@@ -349,11 +349,7 @@ func (rn *run) iterate(it iteration, lv *level, sp stagePlan, tol float64, budge
 			status = IterationLimit
 			break
 		}
-		om := rl.omega
-		peek := rl.peekDue(len(hist), tol)
-		if peek {
-			om = 1
-		}
+		om, peek := rl.next(len(hist), tol)
 		r := it.step(om)
 		res.Iterations++
 		if sp.level == 0 {
@@ -543,6 +539,15 @@ func (r *relaxation) norm(cur float64) float64 {
 		return cur
 	}
 	return cur * (2 - r.omega)
+}
+
+// next returns the factor of the next step and whether that step is a peek
+// (see peekDue); n counts the relaxed steps so far.
+func (r *relaxation) next(n int, tol float64) (float64, bool) {
+	if r.peekDue(n, tol) {
+		return 1, true
+	}
+	return r.omega, false
 }
 
 // peekDue reports whether the next step should be a plain one: a balanced
