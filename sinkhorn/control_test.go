@@ -84,7 +84,7 @@ func TestScalingToLogHandOff(t *testing.T) {
 }
 
 // The controller on a linear problem whose optimum is known: red-black
-// successive over-relaxation for -u” = f on m interior points with zero
+// successive over-relaxation for -d2u/dx2 = f on m interior points with zero
 // ends. Its Jacobi iteration has spectral radius mu = cos(pi / (m + 1)), the
 // optimal factor is 2 / (1 + sqrt(1 - mu^2)) and the rate there omega - 1
 // (Young 1954; Varga, Matrix Iterative Analysis, 1962, ch. 4; standard
