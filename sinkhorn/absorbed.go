@@ -186,24 +186,27 @@ func (a *absKernel) apply(dst, src, x []float64, s *lseScratch) {
 	// Pass 1 along rows; its output goes transposed into s1, so that pass 2
 	// reads contiguous columns.
 	for r := 0; r < k.rows; r++ {
-		e := ee[r*k.cols : (r+1)*k.cols]
-		for c := 0; c < k.cols; c++ {
-			o := r*k.cols + c
-			s1all[c*k.rows+r] = dotWindow(a.p1.w[a.p1.off[o]:a.p1.off[o+1]], e[a.p1.lo[o]:])
+		dotPass(s1all[r:], k.rows, &a.p1, r*k.cols, k.cols, ee[r*k.cols:(r+1)*k.cols])
+	}
+	// Pass 2 along columns writes its sums in place into dst (the
+	// exponentials there were all read by pass 1), then the logs.
+	for c := 0; c < k.cols; c++ {
+		dotPass(dst[c:], k.cols, &a.p2, c*k.rows, k.rows, s1all[c*k.rows:(c+1)*k.rows])
+	}
+	for i, s := range dst[:len(src)] {
+		if a.fast {
+			dst[i] = a.out0[i] + shift + fastLog(s)
+		} else {
+			dst[i] = a.out0[i] + shift + math.Log(s)
 		}
 	}
-	for c := 0; c < k.cols; c++ {
-		s1 := s1all[c*k.rows : (c+1)*k.rows]
-		for r := 0; r < k.rows; r++ {
-			o := c*k.rows + r
-			s := dotWindow(a.p2.w[a.p2.off[o]:a.p2.off[o+1]], s1[a.p2.lo[o]:])
-			i := r*k.cols + c
-			if a.fast {
-				dst[i] = a.out0[i] + shift + fastLog(s)
-			} else {
-				dst[i] = a.out0[i] + shift + math.Log(s)
-			}
-		}
+}
+
+// dotPassGo is dotPass without assembly.
+func dotPassGo(out []float64, stride int, r *windows, first, n int, x []float64) {
+	for o := 0; o < n; o++ {
+		q := first + o
+		out[o*stride] = dotWindow(r.w[r.off[q]:r.off[q+1]], x[r.lo[q]:])
 	}
 }
 

@@ -1,0 +1,23 @@
+package sinkhorn
+
+//go:noescape
+func dotPassAVX(out *float64, stride int, w *float64, off, lo *int32, x *float64, n int)
+
+// dotPass writes, for the n outputs of one line of a pass (their window
+// offsets off[0..n] and starts lo[0..n-1] into x), the window sums to
+// out[o*stride]. The windows (13 weights at epsilon one squared pixel) are
+// too short for a call per output: the loop over outputs is in assembly
+// too. With AVX2 and FMA the absorbed kernel at 128^2 went from 0.55 to
+// 0.35 ms at epsilon 1 and from 0.97 to 0.66 ms at 16 (BenchmarkKernel).
+func dotPass(out []float64, stride int, r *windows, first, n int, x []float64) {
+	if n == 0 {
+		return
+	}
+	if useAVX {
+		_ = out[(n-1)*stride]
+		_ = r.off[first+n]
+		dotPassAVX(&out[0], stride, &r.w[0], &r.off[first], &r.lo[first], &x[0], n)
+		return
+	}
+	dotPassGo(out, stride, r, first, n, x)
+}

@@ -1,0 +1,7 @@
+//go:build !amd64
+
+package sinkhorn
+
+func dotPass(out []float64, stride int, r *windows, first, n int, x []float64) {
+	dotPassGo(out, stride, r, first, n, x)
+}
