@@ -578,17 +578,16 @@ func (r *relaxation) update(hist []float64) {
 	cur := hist[n-1]
 	r.last = cur
 	if r.omega != 1 {
-		// Allow transient growth, but not a sustained one. A balanced
-		// run's relaxed residual grows for about 1 / (2 - omega) steps
-		// after omega rises, as its overshoot builds up, so its window is
-		// at least that long.
-		// r (2 - omega) estimates the plain residual only once the
-		// overshoot has built up, about 1 / (2 - omega) steps after omega
-		// changed: before that it reads too low (measured at 512^2: 3e-7
-		// one step after omega rose to 1.988, 3e-6 25 steps later), and
-		// taken as the best it made the growth test back off on a run
-		// that was converging. Balanced runs neither test nor record it
-		// while it settles, nor read a rate for the refinement below.
+		// Allow transient growth, but not a sustained one.
+		//
+		// In balanced runs r (2 - omega) estimates the plain residual only
+		// once the overshoot has built up, about 1 / (2 - omega) steps
+		// after omega changed: before that it reads too low (measured at
+		// 512^2: 3e-7 one step after omega rose to 1.988, 3e-6 25 steps
+		// later), and taken as the best it made the growth test back off
+		// on a run that was converging. So while it settles they neither
+		// test nor record it, nor read a rate for the refinement below,
+		// and their window for sustained growth is twice as long.
 		sustain, settle := 50, 0
 		if r.backOff {
 			settle = int(1 / (2 - r.omega))
@@ -622,9 +621,13 @@ func (r *relaxation) update(hist []float64) {
 		// value sooner (8 x N^2 make_fields, finest-level iterations at
 		// epsilon 1: 317 -> 256 at 128^2, 527 -> 427 at 256^2; at epsilon
 		// 16: 96 -> 79 and 171 -> 135); with 2 the gain was within noise.
-		const span = 3
+		// Unbalanced runs keep 10, with which their mass mode was tuned.
+		span := 3
+		if !r.backOff {
+			span = 10
+		}
 		if n-r.since >= settle+2*span && (n-r.since-settle)%span == 0 {
-			lam := math.Pow(hist[n-1]/hist[n-1-span], 1.0/span)
+			lam := math.Pow(hist[n-1]/hist[n-1-span], 1/float64(span))
 			// Young's relation holds for a real, steady rate. Above a
 			// mode's optimum the residual oscillates instead (period about
 			// 60 steps at 128^2), and a rate read over part of a swing
@@ -633,7 +636,7 @@ func (r *relaxation) update(hist []float64) {
 			// consecutive spans agree to a quarter of 1 - lambda.
 			steady := true
 			if r.backOff {
-				prev := math.Pow(hist[n-1-span]/hist[n-1-2*span], 1.0/span)
+				prev := math.Pow(hist[n-1-span]/hist[n-1-2*span], 1/float64(span))
 				steady = math.Abs(prev-lam) <= 0.25*(1-lam)
 			}
 			// At the optimum and above it the rate is omega - 1 itself, and
