@@ -255,6 +255,19 @@ func TestDotPass(t *testing.T) {
 			t.Errorf("output %d: %v, want %v", i, got[i], want[i])
 		}
 	}
+	// A pass whose windows are all empty (every input -Inf) sums to zero.
+	var none windows
+	none.reset()
+	for range 4 {
+		none.add(0, nil)
+	}
+	zero := []float64{7, 7, 7, 7}
+	dotPass(zero, 1, &none, 0, 4, x)
+	for i, v := range zero {
+		if v != 0 {
+			t.Errorf("empty window %d sums to %v", i, v)
+		}
+	}
 	// Offsets into the middle of the windows, as a line of a pass reads them.
 	dotPass(got[stride:], stride, &r, 1, n-1, x)
 	for o := 1; o < n; o++ {

@@ -13,7 +13,7 @@ func dotPass(out []float64, stride int, r *windows, first, n int, x []float64) {
 	if n == 0 {
 		return
 	}
-	if useAVX {
+	if useAVX && len(r.w) > 0 { // with no weights at all (inputs all -Inf) there is no &r.w[0]
 		_ = out[(n-1)*stride]
 		_ = r.off[first+n]
 		dotPassAVX(&out[0], stride, &r.w[0], &r.off[first], &r.lo[first], &x[0], n)
