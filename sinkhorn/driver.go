@@ -365,7 +365,9 @@ func (rn *run) iterate(it iteration, lv *level, sp stagePlan, tol float64, budge
 		if p.progress != nil {
 			p.progress(res.Iterations, r)
 		}
-		if m := it.health(om == 1); m != "" || math.IsNaN(r) || math.IsInf(r, 0) {
+		// Strictness follows the stage's factor, not a peek's: a relaxed
+		// stage that fails retries without relaxation first.
+		if m := it.health(rl.omega == 1); m != "" || math.IsNaN(r) || math.IsInf(r, 0) {
 			if m == "" {
 				m = fmt.Sprintf("residual became %v at epsilon %g", r, sp.eps)
 			}
@@ -545,6 +547,9 @@ func (r *relaxation) norm(cur float64) float64 {
 // (see peekDue); n counts the relaxed steps so far.
 func (r *relaxation) next(n int, tol float64) (float64, bool) {
 	if r.peekDue(n, tol) {
+		// Recorded here, not in peeked: a step whose band check widens the
+		// kernel is not reported back, and must not peek again at once.
+		r.lastPeek = n
 		return 1, true
 	}
 	return r.omega, false
@@ -567,7 +572,7 @@ func (r *relaxation) peeked(n int, cur float64) {
 	if e := r.norm(r.last); e > 0 {
 		r.scale = math.Min(math.Max(cur/e, 0.3), 3)
 	}
-	r.lastPeek, r.since, r.best = n, n, cur
+	r.since, r.best = n, cur
 }
 
 func (r *relaxation) update(hist []float64) {
