@@ -56,3 +56,35 @@ func axpyPair1(out []float64, w float64, a, b []float64) {
 		out[c] += w * (a[c] + b[c])
 	}
 }
+
+//go:noescape
+func band4AVX(out, src *float64, stride, cols int, w *float64, nj int)
+
+// band4 writes four rows of a banded pass (see bandPass) over the first
+// cols columns, a multiple of 8, and reports whether it could.
+func band4(out, src []float64, stride, cols int, wp []float64, wi, nj int) bool {
+	if !useAVX {
+		return false
+	}
+	_ = out[3*stride+cols-1]
+	_ = src[(nj-1)*stride+cols-1]
+	_ = wp[wi-3]
+	_ = wp[wi+nj-1]
+	band4AVX(&out[0], &src[0], stride, cols, &wp[wi], nj)
+	return true
+}
+
+//go:noescape
+func conv1dAVX(out, in *float64, n int, w *float64, nt int)
+
+// conv1d writes out[c] = sum_t w[t] in[c+t] for c below the largest
+// multiple of 32 in len(out) and returns that count (0 without AVX2).
+func conv1d(out, in, w []float64) int {
+	n := len(out) &^ 31
+	if !useAVX || n == 0 || len(w) == 0 {
+		return 0
+	}
+	_ = in[n-1+len(w)-1]
+	conv1dAVX(&out[0], &in[0], n, &w[0], len(w))
+	return n
+}

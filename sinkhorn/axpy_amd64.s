@@ -84,3 +84,117 @@ loop1:
 done1:
 	VZEROUPPER
 	RET
+
+// func band4AVX(out, src *float64, stride, cols int, w *float64, nj int)
+// Four output rows of a banded pass at once, eight columns at a time:
+// out[q*stride + c] = sum_{i < nj} w[i-q] * src[i*stride + c] for q < 4 and
+// c < cols (a positive multiple of 8). The eight sums stay in registers
+// while the input rows stream past, so each input row is loaded once for
+// four outputs and no output is loaded or stored in the loop.
+TEXT ·band4AVX(SB), NOSPLIT, $0-48
+	MOVQ out+0(FP), DI
+	MOVQ src+8(FP), SI
+	MOVQ stride+16(FP), R8
+	SHLQ $3, R8
+	MOVQ cols+24(FP), CX
+	MOVQ w+32(FP), R9
+	MOVQ nj+40(FP), R10
+colloop:
+	VXORPD Y0, Y0, Y0
+	VXORPD Y1, Y1, Y1
+	VXORPD Y2, Y2, Y2
+	VXORPD Y3, Y3, Y3
+	VXORPD Y4, Y4, Y4
+	VXORPD Y5, Y5, Y5
+	VXORPD Y6, Y6, Y6
+	VXORPD Y7, Y7, Y7
+	MOVQ SI, R11
+	MOVQ R9, R12
+	MOVQ R10, BX
+rowloop:
+	VMOVUPD (R11), Y8
+	VMOVUPD 32(R11), Y9
+	VBROADCASTSD (R12), Y10
+	VFMADD231PD Y8, Y10, Y0
+	VFMADD231PD Y9, Y10, Y1
+	VBROADCASTSD -8(R12), Y11
+	VFMADD231PD Y8, Y11, Y2
+	VFMADD231PD Y9, Y11, Y3
+	VBROADCASTSD -16(R12), Y12
+	VFMADD231PD Y8, Y12, Y4
+	VFMADD231PD Y9, Y12, Y5
+	VBROADCASTSD -24(R12), Y13
+	VFMADD231PD Y8, Y13, Y6
+	VFMADD231PD Y9, Y13, Y7
+	ADDQ R8, R11
+	ADDQ $8, R12
+	DECQ BX
+	JNZ rowloop
+	VMOVUPD Y0, (DI)
+	VMOVUPD Y1, 32(DI)
+	LEAQ (DI)(R8*1), R13
+	VMOVUPD Y2, (R13)
+	VMOVUPD Y3, 32(R13)
+	ADDQ R8, R13
+	VMOVUPD Y4, (R13)
+	VMOVUPD Y5, 32(R13)
+	ADDQ R8, R13
+	VMOVUPD Y6, (R13)
+	VMOVUPD Y7, 32(R13)
+	ADDQ $64, DI
+	ADDQ $64, SI
+	SUBQ $8, CX
+	JG colloop
+	VZEROUPPER
+	RET
+
+// func conv1dAVX(out, in *float64, n int, w *float64, nt int)
+// A correlation along a line: out[c] = sum_{t < nt} w[t] * in[c+t] for
+// c < n, a positive multiple of 32. Thirty-two sums stay in registers while
+// the taps stream past (unaligned loads of in are cheap L1 hits).
+TEXT ·conv1dAVX(SB), NOSPLIT, $0-40
+	MOVQ out+0(FP), DI
+	MOVQ in+8(FP), SI
+	MOVQ n+16(FP), CX
+	MOVQ w+24(FP), R9
+	MOVQ nt+32(FP), R10
+cblk:
+	VXORPD Y0, Y0, Y0
+	VXORPD Y1, Y1, Y1
+	VXORPD Y2, Y2, Y2
+	VXORPD Y3, Y3, Y3
+	VXORPD Y4, Y4, Y4
+	VXORPD Y5, Y5, Y5
+	VXORPD Y6, Y6, Y6
+	VXORPD Y7, Y7, Y7
+	MOVQ SI, R11
+	MOVQ R9, R12
+	MOVQ R10, BX
+ctap:
+	VBROADCASTSD (R12), Y8
+	VFMADD231PD (R11), Y8, Y0
+	VFMADD231PD 32(R11), Y8, Y1
+	VFMADD231PD 64(R11), Y8, Y2
+	VFMADD231PD 96(R11), Y8, Y3
+	VFMADD231PD 128(R11), Y8, Y4
+	VFMADD231PD 160(R11), Y8, Y5
+	VFMADD231PD 192(R11), Y8, Y6
+	VFMADD231PD 224(R11), Y8, Y7
+	ADDQ $8, R11
+	ADDQ $8, R12
+	DECQ BX
+	JNZ ctap
+	VMOVUPD Y0, (DI)
+	VMOVUPD Y1, 32(DI)
+	VMOVUPD Y2, 64(DI)
+	VMOVUPD Y3, 96(DI)
+	VMOVUPD Y4, 128(DI)
+	VMOVUPD Y5, 160(DI)
+	VMOVUPD Y6, 192(DI)
+	VMOVUPD Y7, 224(DI)
+	ADDQ $256, DI
+	ADDQ $256, SI
+	SUBQ $32, CX
+	JG cblk
+	VZEROUPPER
+	RET

@@ -2,6 +2,7 @@ package sinkhorn
 
 import (
 	"math"
+	"math/rand/v2"
 	"sort"
 	"testing"
 
@@ -26,7 +27,14 @@ func gaussField(rows, cols int, mx, my, s2 float64) *grid.Field {
 // The separable kernel equals the dense N x N Gibbs kernel built from the
 // definition K(p, q) = exp(-|p - q|^2/eps), anisotropic pixels included.
 func TestSeparableEqualsDense(t *testing.T) {
-	const rows, cols = 5, 7
+	// 5 x 7 takes the portable passes; 9 x 45 the blocked ones with their
+	// row and column tails (bandPass, conv1d).
+	for _, sz := range [][2]int{{5, 7}, {9, 45}} {
+		separableEqualsDense(t, sz[0], sz[1])
+	}
+}
+
+func separableEqualsDense(t *testing.T, rows, cols int) {
 	dx, dy, eps := 0.7, 1.3, 2.5
 	f := grid.New(rows, cols)
 	for i := range f.Data {
@@ -384,6 +392,39 @@ func TestWarmStart(t *testing.T) {
 		t.Logf("%v: cold %d iterations, warm %d, L1 %.2g", m, cold.Iterations, warm.Iterations, l1)
 		if warm.Iterations >= cold.Iterations || l1 > 1e-5 {
 			t.Errorf("%v: warm %d vs cold %d iterations, L1 %g", m, warm.Iterations, cold.Iterations, l1)
+		}
+	}
+}
+
+// The register-blocked pass (four rows, eight columns at a time, with
+// column and row tails) equals the banded sum written out from its
+// definition, dst[r][c] = sum_{|j - r| <= R} w(j - r) src[j][c], for sizes
+// on either side of the blocks and bands narrower and wider than the grid.
+func TestBandPassDefinition(t *testing.T) {
+	rng := rand.New(rand.NewPCG(3, 4))
+	for _, n := range []int{1, 3, 4, 5, 8, 13, 21} {
+		for _, m := range []int{1, 7, 8, 9, 16, 19} {
+			for _, eps := range []float64{0.5, 3, 40} {
+				tp, R := taps(n, 1, eps, 1e-12)
+				padded := append(append(make([]float64, 3), tp...), 0, 0, 0)
+				src := make([]float64, n*m)
+				for i := range src {
+					src[i] = rng.Float64()
+				}
+				dst := make([]float64, n*m)
+				bandPass(dst, src, n, m, tp, padded, R)
+				for r := 0; r < n; r++ {
+					for c := 0; c < m; c++ {
+						want := 0.0
+						for j := max(0, r-R); j <= min(n-1, r+R); j++ {
+							want += tp[j-r+R] * src[j*m+c]
+						}
+						if math.Abs(dst[r*m+c]-want) > 1e-14*want {
+							t.Fatalf("n %d m %d eps %g: [%d][%d] = %.17g, want %.17g", n, m, eps, r, c, dst[r*m+c], want)
+						}
+					}
+				}
+			}
 		}
 	}
 }
