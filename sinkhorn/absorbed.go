@@ -112,26 +112,9 @@ func (a *absKernel) near(src []float64) (float64, bool) {
 	if !a.built {
 		return 0, false
 	}
-	ninf := math.Inf(-1)
-	lo, hi := math.Inf(1), math.Inf(-1)
-	for i, x := range src {
-		r := a.ref[i]
-		if (x == ninf) != (r == ninf) {
-			return 0, false
-		}
-		if x != ninf {
-			// Plain comparisons (math.Min and Max cost 25% of an
-			// application). A NaN passes unseen and reaches the output, as
-			// a rebuild would pass it; the driver's health check stops
-			// the iteration on it.
-			d := x - r
-			if d < lo {
-				lo = d
-			}
-			if d > hi {
-				hi = d
-			}
-		}
+	lo, hi, ok := nearScan(src, a.ref)
+	if !ok {
+		return 0, false
 	}
 	if math.IsInf(lo, 1) {
 		return 0, true
@@ -175,14 +158,8 @@ func (a *absKernel) apply(dst, src, x []float64, s *lseScratch) {
 		return
 	}
 	k := a.k
-	ninf := math.Inf(-1)
 	ee, s1all := dst[:len(src)], x[:len(src)]
-	for i, x := range src {
-		ee[i] = 0
-		if x != ninf {
-			ee[i] = expNeg(x - a.ref[i] - shift)
-		}
-	}
+	expShift(ee, src, a.ref, shift)
 	// Pass 1 along rows; its output goes transposed into s1, so that pass 2
 	// reads contiguous columns.
 	for r := 0; r < k.rows; r++ {
@@ -193,12 +170,12 @@ func (a *absKernel) apply(dst, src, x []float64, s *lseScratch) {
 	for c := 0; c < k.cols; c++ {
 		dotPass(dst[c:], k.cols, &a.p2, c*k.rows, k.rows, s1all[c*k.rows:(c+1)*k.rows])
 	}
+	if a.fast {
+		logAdd(dst[:len(src)], a.out0, shift)
+		return
+	}
 	for i, s := range dst[:len(src)] {
-		if a.fast {
-			dst[i] = a.out0[i] + shift + fastLog(s)
-		} else {
-			dst[i] = a.out0[i] + shift + math.Log(s)
-		}
+		dst[i] = a.out0[i] + shift + math.Log(s)
 	}
 }
 

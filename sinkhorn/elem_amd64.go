@@ -1,0 +1,83 @@
+package sinkhorn
+
+import "math"
+
+//go:noescape
+func nearAVX(src, ref *float64, n int, c *float64) (lo, hi float64, bad int)
+
+//go:noescape
+func expShiftAVX(ee, src, ref *float64, n int, shift float64, c, tab *float64)
+
+//go:noescape
+func logAddAVX(dst, out0 *float64, n int, shift float64, c, ltab, itab *float64) int
+
+// elemConsts are the assembly's constants, each four times (see elem_amd64.s
+// for the offsets).
+var elemConsts = func() (c [100]float64) {
+	bits := func(u uint64) float64 { return math.Float64frombits(u) }
+	vals := []float64{
+		math.Inf(-1), math.Inf(1),
+		64 / math.Ln2, 6.93147180369123816490e-01 / 64, 1.90821492927058770002e-10 / 64,
+		1.0 / 720, 1.0 / 120, 1.0 / 24, 1.0 / 6, 1.0 / 2, 1,
+		0, // the int32 mask, below
+		0x1p-1022,
+		bits(255), bits(1<<52 - 1), bits(1023 << 52), bits(0xfffff << 44),
+		1.0 / 6, 1.0 / 5, 1.0 / 4, 1.0 / 3,
+		bits(0x4330000000000000), 0x1p52 + 1023,
+		1.90821492927058770002e-10, 6.93147180369123816490e-01,
+	}
+	for k, v := range vals {
+		for l := range 4 {
+			c[4*k+l] = v
+		}
+	}
+	// Offset 352: four int32 63s in the first 16 bytes.
+	c[44], c[45], c[46], c[47] = bits(63|63<<32), bits(63|63<<32), 0, 0
+	return
+}()
+
+// nearScan returns the least and largest src - ref over finite src, and
+// false where exactly one of src[i], ref[i] is -Inf.
+func nearScan(src, ref []float64) (lo, hi float64, ok bool) {
+	n4 := 0
+	lo, hi = math.Inf(1), math.Inf(-1)
+	if useAVX && len(src) >= 4 {
+		n4 = len(src) &^ 3
+		_ = ref[n4-1]
+		var bad int
+		lo, hi, bad = nearAVX(&src[0], &ref[0], n4, &elemConsts[0])
+		if bad != 0 {
+			return 0, 0, false
+		}
+	}
+	return nearTail(src[n4:], ref[n4:len(src)], lo, hi)
+}
+
+// expShift writes ee[i] = exp(src[i] - ref[i] - shift), 0 where src[i] is
+// -Inf.
+func expShift(ee, src, ref []float64, shift float64) {
+	n4 := 0
+	if useAVX && len(src) >= 4 {
+		n4 = len(src) &^ 3
+		_, _ = ee[n4-1], ref[n4-1]
+		expShiftAVX(&ee[0], &src[0], &ref[0], n4, shift, &elemConsts[0], &expTab[0])
+	}
+	expShiftGo(ee[n4:], src[n4:], ref[n4:len(src)], shift)
+}
+
+// logAdd writes dst[i] = out0[i] + shift + fastLog(dst[i]).
+func logAdd(dst, out0 []float64, shift float64) {
+	i := 0
+	if useAVX && len(dst) >= 4 {
+		n4 := len(dst) &^ 3
+		_ = out0[len(dst)-1]
+		for i < n4 {
+			i += logAddAVX(&dst[i], &out0[i], n4-i, shift, &elemConsts[0], &logTab[0], &invTab[0])
+			if i < n4 { // a group with a zero (or non-normal) sum
+				logAddGo(dst[i:i+4], out0[i:i+4], shift)
+				i += 4
+			}
+		}
+	}
+	logAddGo(dst[i:], out0[i:len(dst)], shift)
+}

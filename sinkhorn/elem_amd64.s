@@ -1,0 +1,169 @@
+#include "textflag.h"
+
+// Element-wise parts of the absorbed kernel (absorbed.go), four lanes at a
+// time; the scalar forms are nearScan, expShiftGo and logAddGo. c points to
+// the constants of elemConsts, each stored four times (32 bytes apart).
+
+// func nearAVX(src, ref *float64, n int, c *float64) (lo, hi float64, bad int)
+// Over n (a multiple of 4) entries: the least and largest src - ref where
+// src is finite, and nonzero bad where exactly one of src, ref is -Inf. A
+// NaN difference is passed over, as in the scalar loop.
+TEXT ·nearAVX(SB), NOSPLIT, $0-56
+	MOVQ src+0(FP), SI
+	MOVQ ref+8(FP), DX
+	MOVQ n+16(FP), CX
+	MOVQ c+24(FP), R9
+	VMOVUPD 0(R9), Y15  // -Inf
+	VMOVUPD 32(R9), Y13 // lo = +Inf
+	VMOVUPD Y15, Y12    // hi = -Inf
+	VXORPD Y11, Y11, Y11
+	TESTQ CX, CX
+	JLE nearend
+nearloop:
+	VMOVUPD (SI), Y0
+	VMOVUPD (DX), Y1
+	VCMPPD $0, Y15, Y0, Y2
+	VCMPPD $0, Y15, Y1, Y3
+	VXORPD Y2, Y3, Y3
+	VORPD Y3, Y11, Y11
+	// Where both are -Inf the difference is NaN, and VMINPD, VMAXPD
+	// return their second source (the bound) for a NaN.
+	VSUBPD Y1, Y0, Y4
+	VMINPD Y13, Y4, Y13
+	VMAXPD Y12, Y4, Y12
+	ADDQ $32, SI
+	ADDQ $32, DX
+	SUBQ $4, CX
+	JG nearloop
+nearend:
+	VEXTRACTF128 $1, Y13, X0
+	VMINPD X13, X0, X0
+	VPERMILPD $1, X0, X1
+	VMINPD X0, X1, X0
+	VMOVSD X0, lo+32(FP)
+	VEXTRACTF128 $1, Y12, X0
+	VMAXPD X12, X0, X0
+	VPERMILPD $1, X0, X1
+	VMAXPD X0, X1, X0
+	VMOVSD X0, hi+40(FP)
+	VMOVMSKPD Y11, AX
+	MOVQ AX, bad+48(FP)
+	VZEROUPPER
+	RET
+
+// func expShiftAVX(ee, src, ref *float64, n int, shift float64, c, tab *float64)
+// ee[i] = exp(src[i] - ref[i] - shift), 0 where src[i] is -Inf, for n a
+// multiple of 4, by expNeg's reduction (n/64 ln 2 + r, a table of 2^(j/64)
+// and a degree-6 polynomial); the differences lie within the absorption
+// range, far from over- and underflow.
+TEXT ·expShiftAVX(SB), NOSPLIT, $0-56
+	MOVQ ee+0(FP), DI
+	MOVQ src+8(FP), SI
+	MOVQ ref+16(FP), DX
+	MOVQ n+24(FP), CX
+	VBROADCASTSD shift+32(FP), Y14
+	MOVQ c+40(FP), R9
+	MOVQ tab+48(FP), R10
+	VMOVUPD 0(R9), Y15 // -Inf
+	TESTQ CX, CX
+	JLE expend
+exploop:
+	VMOVUPD (SI), Y0
+	VCMPPD $0, Y15, Y0, Y1
+	VSUBPD (DX), Y0, Y2
+	VSUBPD Y14, Y2, Y2
+	VMULPD 64(R9), Y2, Y3  // x * 64/ln2
+	VROUNDPD $0, Y3, Y3
+	VFNMADD231PD 96(R9), Y3, Y2  // x - n ln2hi/64
+	VFNMADD231PD 128(R9), Y3, Y2 // - n ln2lo/64
+	VMOVUPD 160(R9), Y4          // 1/720
+	VFMADD213PD 192(R9), Y2, Y4  // 1/120
+	VFMADD213PD 224(R9), Y2, Y4  // 1/24
+	VFMADD213PD 256(R9), Y2, Y4  // 1/6
+	VFMADD213PD 288(R9), Y2, Y4  // 1/2
+	VFMADD213PD 320(R9), Y2, Y4  // 1
+	VFMADD213PD 320(R9), Y2, Y4  // 1
+	VCVTPD2DQY Y3, X5
+	VPAND 352(R9), X5, X6        // n & 63
+	VPSRAD $6, X5, X7
+	VPMOVSXDQ X7, Y7
+	VPSLLQ $52, Y7, Y7
+	VPCMPEQD Y8, Y8, Y8
+	VXORPD Y9, Y9, Y9
+	VGATHERDPD Y8, (R10)(X6*8), Y9
+	VPADDQ Y7, Y9, Y9
+	VMULPD Y4, Y9, Y9
+	VANDNPD Y9, Y1, Y9
+	VMOVUPD Y9, (DI)
+	ADDQ $32, SI
+	ADDQ $32, DX
+	ADDQ $32, DI
+	SUBQ $4, CX
+	JG exploop
+expend:
+	VZEROUPPER
+	RET
+
+// func logAddAVX(dst, out0 *float64, n int, shift float64, c, ltab, itab *float64) int
+// dst[i] = out0[i] + shift + log(dst[i]) by fastLog's reduction, for n a
+// multiple of 4. It stops before the first group of four with a sum that
+// is not a positive normal number (zero where every input was -Inf) and
+// returns how many entries it wrote; the caller takes that group.
+TEXT ·logAddAVX(SB), NOSPLIT, $0-64
+	MOVQ dst+0(FP), DI
+	MOVQ out0+8(FP), SI
+	MOVQ n+16(FP), CX
+	VBROADCASTSD shift+24(FP), Y14
+	MOVQ c+32(FP), R9
+	MOVQ ltab+40(FP), R10
+	MOVQ itab+48(FP), R11
+	XORQ AX, AX
+	TESTQ CX, CX
+	JLE logend
+logloop:
+	VMOVUPD (DI), Y0
+	VCMPPD $0x1d, 384(R9), Y0, Y1 // s >= smallest normal (GE_OQ)
+	VCMPPD $0x11, 32(R9), Y0, Y2  // s < +Inf (LT_OQ)
+	VANDPD Y2, Y1, Y1
+	VMOVMSKPD Y1, BX
+	CMPQ BX, $15
+	JNE logend
+	VPSRLQ $44, Y0, Y3
+	VPAND 416(R9), Y3, Y3          // j = top 8 mantissa bits
+	VPCMPEQD Y8, Y8, Y8
+	VXORPD Y9, Y9, Y9
+	VGATHERQPD Y8, (R11)(Y3*8), Y9 // 1 / (1 + j/256)
+	VPCMPEQD Y8, Y8, Y8
+	VXORPD Y10, Y10, Y10
+	VGATHERQPD Y8, (R10)(Y3*8), Y10 // log(1 + j/256)
+	VANDPD 448(R9), Y0, Y4         // mantissa bits
+	VORPD 480(R9), Y4, Y4          // m in [1, 2)
+	VANDPD 512(R9), Y4, Y5         // 1 + j/256
+	VSUBPD Y5, Y4, Y4
+	VMULPD Y9, Y4, Y4              // r
+	VMOVUPD 544(R9), Y6            // 1/6
+	VFNMADD213PD 576(R9), Y4, Y6   // 1/5 - r q
+	VFNMADD213PD 608(R9), Y4, Y6   // 1/4
+	VFNMADD213PD 640(R9), Y4, Y6   // 1/3
+	VFNMADD213PD 288(R9), Y4, Y6   // 1/2
+	VFNMADD213PD 320(R9), Y4, Y6   // 1
+	VMULPD Y4, Y6, Y6              // l
+	VPSRLQ $52, Y0, Y7
+	VPOR 672(R9), Y7, Y7           // 2^52 + e as a double
+	VSUBPD 704(R9), Y7, Y7         // k = e - 1023
+	VADDPD Y10, Y6, Y6             // logTab + l
+	VFMADD231PD 736(R9), Y7, Y6    // + k ln2lo
+	VFMADD231PD 768(R9), Y7, Y6    // + k ln2hi
+	VMOVUPD (SI), Y11
+	VADDPD Y14, Y11, Y11
+	VADDPD Y6, Y11, Y11
+	VMOVUPD Y11, (DI)
+	ADDQ $32, DI
+	ADDQ $32, SI
+	ADDQ $4, AX
+	SUBQ $4, CX
+	JG logloop
+logend:
+	MOVQ AX, ret+56(FP)
+	VZEROUPPER
+	RET

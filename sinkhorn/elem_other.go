@@ -1,0 +1,13 @@
+//go:build !amd64
+
+package sinkhorn
+
+import "math"
+
+func nearScan(src, ref []float64) (lo, hi float64, ok bool) {
+	return nearTail(src, ref, math.Inf(1), math.Inf(-1))
+}
+
+func expShift(ee, src, ref []float64, shift float64) { expShiftGo(ee, src, ref, shift) }
+
+func logAdd(dst, out0 []float64, shift float64) { logAddGo(dst, out0, shift) }
