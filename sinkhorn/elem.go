@@ -45,3 +45,14 @@ func logAddGo(dst, out0 []float64, shift float64) {
 		dst[i] = out0[i] + shift + fastLog(s)
 	}
 }
+
+func expSumGo(m, a, b []float64) {
+	ninf := math.Inf(-1)
+	m, b = m[:len(a)], b[:len(a)]
+	for i, x := range a {
+		m[i] = 0
+		if x != ninf {
+			m[i] = math.Exp(x + b[i])
+		}
+	}
+}

@@ -6,14 +6,14 @@ import "math"
 func nearAVX(src, ref *float64, n int, c *float64) (lo, hi float64, bad int)
 
 //go:noescape
-func expShiftAVX(ee, src, ref *float64, n int, shift float64, c, tab *float64)
+func expShiftAVX(ee, src, ref *float64, n int, sgn, shift float64, c, tab *float64) (bad int)
 
 //go:noescape
 func logAddAVX(dst, out0 *float64, n int, shift float64, c, ltab, itab *float64) int
 
 // elemConsts are the assembly's constants, each four times (see elem_amd64.s
 // for the offsets).
-var elemConsts = func() (c [100]float64) {
+var elemConsts = func() (c [108]float64) {
 	bits := func(u uint64) float64 { return math.Float64frombits(u) }
 	vals := []float64{
 		math.Inf(-1), math.Inf(1),
@@ -25,6 +25,7 @@ var elemConsts = func() (c [100]float64) {
 		1.0 / 6, 1.0 / 5, 1.0 / 4, 1.0 / 3,
 		bits(0x4330000000000000), 0x1p52 + 1023,
 		1.90821492927058770002e-10, 6.93147180369123816490e-01,
+		-700, 700,
 	}
 	for k, v := range vals {
 		for l := range 4 {
@@ -60,9 +61,23 @@ func expShift(ee, src, ref []float64, shift float64) {
 	if useAVX && len(src) >= 4 {
 		n4 = len(src) &^ 3
 		_, _ = ee[n4-1], ref[n4-1]
-		expShiftAVX(&ee[0], &src[0], &ref[0], n4, shift, &elemConsts[0], &expTab[0])
+		expShiftAVX(&ee[0], &src[0], &ref[0], n4, 1, shift, &elemConsts[0], &expTab[0])
 	}
 	expShiftGo(ee[n4:], src[n4:], ref[n4:len(src)], shift)
+}
+
+// expSum writes m[i] = exp(a[i] + b[i]), 0 where a[i] is -Inf (a marginal
+// u K v from log u and log K v).
+func expSum(m, a, b []float64) {
+	n4 := 0
+	if useAVX && len(a) >= 4 {
+		n4 = len(a) &^ 3
+		_, _ = m[n4-1], b[n4-1]
+		if expShiftAVX(&m[0], &a[0], &b[0], n4, -1, 0, &elemConsts[0], &expTab[0]) != 0 {
+			n4 = 0 // an argument beyond expNeg's range: all by math.Exp
+		}
+	}
+	expSumGo(m[n4:], a[n4:], b[n4:len(a)])
 }
 
 // logAdd writes dst[i] = out0[i] + shift + fastLog(dst[i]).

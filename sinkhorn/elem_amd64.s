@@ -51,27 +51,37 @@ nearend:
 	VZEROUPPER
 	RET
 
-// func expShiftAVX(ee, src, ref *float64, n int, shift float64, c, tab *float64)
-// ee[i] = exp(src[i] - ref[i] - shift), 0 where src[i] is -Inf, for n a
+// func expShiftAVX(ee, src, ref *float64, n int, sgn, shift float64, c, tab *float64) (bad int)
+// ee[i] = exp(src[i] - sgn ref[i] - shift), 0 where src[i] is -Inf, for n a
 // multiple of 4, by expNeg's reduction (n/64 ln 2 + r, a table of 2^(j/64)
-// and a degree-6 polynomial); the differences lie within the absorption
-// range, far from over- and underflow.
-TEXT ·expShiftAVX(SB), NOSPLIT, $0-56
+// and a degree-6 polynomial). bad is nonzero when an argument with finite
+// src lies outside [-700, 700] (or is NaN), where the reduction does not
+// hold; the caller then takes math.Exp.
+TEXT ·expShiftAVX(SB), NOSPLIT, $0-72
 	MOVQ ee+0(FP), DI
 	MOVQ src+8(FP), SI
 	MOVQ ref+16(FP), DX
 	MOVQ n+24(FP), CX
-	VBROADCASTSD shift+32(FP), Y14
-	MOVQ c+40(FP), R9
-	MOVQ tab+48(FP), R10
+	VBROADCASTSD sgn+32(FP), Y13
+	VBROADCASTSD shift+40(FP), Y14
+	MOVQ c+48(FP), R9
+	MOVQ tab+56(FP), R10
 	VMOVUPD 0(R9), Y15 // -Inf
+	VXORPD Y12, Y12, Y12
 	TESTQ CX, CX
 	JLE expend
 exploop:
 	VMOVUPD (SI), Y0
 	VCMPPD $0, Y15, Y0, Y1
-	VSUBPD (DX), Y0, Y2
-	VSUBPD Y14, Y2, Y2
+	VFNMADD231PD (DX), Y13, Y0   // src - sgn ref
+	VSUBPD Y14, Y0, Y2
+	VCMPPD $0x1d, 800(R9), Y2, Y10 // x >= -700 (GE_OQ)
+	VCMPPD $0x12, 832(R9), Y2, Y11 // x <= 700 (LE_OQ)
+	VANDPD Y11, Y10, Y10
+	VORPD Y1, Y10, Y10
+	VPCMPEQD Y11, Y11, Y11
+	VXORPD Y11, Y10, Y10
+	VORPD Y10, Y12, Y12
 	VMULPD 64(R9), Y2, Y3  // x * 64/ln2
 	VROUNDPD $0, Y3, Y3
 	VFNMADD231PD 96(R9), Y3, Y2  // x - n ln2hi/64
@@ -101,6 +111,8 @@ exploop:
 	SUBQ $4, CX
 	JG exploop
 expend:
+	VMOVMSKPD Y12, AX
+	MOVQ AX, bad+64(FP)
 	VZEROUPPER
 	RET
 

@@ -11,3 +11,5 @@ func nearScan(src, ref []float64) (lo, hi float64, ok bool) {
 func expShift(ee, src, ref []float64, shift float64) { expShiftGo(ee, src, ref, shift) }
 
 func logAdd(dst, out0 []float64, shift float64) { logAddGo(dst, out0, shift) }
+
+func expSum(m, a, b []float64) { expSumGo(m, a, b) }

@@ -58,6 +58,26 @@ func TestElementPasses(t *testing.T) {
 					t.Fatalf("n %d: exp at %d = %.17g, math.Exp %.17g", n, i, ee[i], want[i])
 				}
 			}
+			// exp of a sum, as the residual forms u K v; some arguments
+			// beyond expNeg's range send the call to math.Exp.
+			b := make([]float64, n)
+			for i := range b {
+				b[i] = -ref[i] - 10*rng.Float64()
+				if trial == 3 && i == n/2 {
+					b[i] += 2000 * (rng.Float64() - 0.5)
+				}
+			}
+			m := make([]float64, n)
+			expSum(m, src, b)
+			for i := range src {
+				w := 0.0
+				if src[i] != ninf {
+					w = math.Exp(src[i] + b[i])
+				}
+				if !(m[i] == w || (!math.IsInf(w, 0) && math.Abs(m[i]-w) <= 1e-15*w)) {
+					t.Fatalf("n %d: exp of a sum at %d = %.17g, math.Exp %.17g", n, i, m[i], w)
+				}
+			}
 			// log: sums as pass 2 leaves them, some zero.
 			sums, out0 := make([]float64, n), make([]float64, n)
 			for i := range sums {

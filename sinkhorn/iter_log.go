@@ -256,16 +256,31 @@ func (st *logIter) step(omega float64) float64 {
 		lkv := st.LKv[k]
 		st.conv(k, lkv, G, k)
 		var v violation
-		for i, a := range lv.a[k] {
-			m := 0.0
-			if st.F[k][i] != ninf {
-				m = math.Exp(st.F[k][i] + lkv[i])
+		if lam == 1 {
+			// The marginals u K v a block at a time, four lanes at once
+			// (expSum): math.Exp here was 8% of a 128^2 solve.
+			var m [256]float64
+			a, F := lv.a[k], st.F[k]
+			for i0 := 0; i0 < len(a); i0 += len(m) {
+				i1 := min(i0+len(m), len(a))
+				mb := m[:i1-i0]
+				expSum(mb, F[i0:i1], lkv[i0:i1])
+				for i, x := range mb {
+					v.add(x, a[i0+i])
+				}
 			}
-			if lam != 1 && a > 0 {
-				// u = a^e / (K v)^lambda: u K v = a^e (K v)^(1 - lambda).
-				a = math.Exp(e*lv.la[k][i] + (1-lam)*lkv[i])
+		} else {
+			for i, a := range lv.a[k] {
+				m := 0.0
+				if st.F[k][i] != ninf {
+					m = math.Exp(st.F[k][i] + lkv[i])
+				}
+				if a > 0 {
+					// u = a^e / (K v)^lambda: u K v = a^e (K v)^(1 - lambda).
+					a = math.Exp(e*lv.la[k][i] + (1-lam)*lkv[i])
+				}
+				v.add(m, a)
 			}
-			v.add(m, a)
 		}
 		st.resid[k] = v.value(lv.mass[k])
 	})
