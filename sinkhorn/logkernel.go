@@ -37,12 +37,13 @@ type lseScratch struct {
 	v               []int
 	z, pre, suf, ex []float64 // ex: the terms of the current output, by j
 	jstar           []int
+	zero            []float64 // zeros, the reference of lseLine's exps
 }
 
 func newLSEScratch(rows, cols int) *lseScratch {
 	n := max(rows, cols)
 	return &lseScratch{v: make([]int, n), z: make([]float64, n+1), pre: make([]float64, n), suf: make([]float64, n),
-		ex: make([]float64, n), jstar: make([]int, n)}
+		ex: make([]float64, n), jstar: make([]int, n), zero: make([]float64, n)}
 }
 
 // apply writes the log-domain kernel of src to dst; tmp has their size.
@@ -125,9 +126,11 @@ func lseLine(out, h []float64, c, drop float64, s *lseScratch, rec *windows) {
 		fi := float64(i)
 		d := fi - float64(js)
 		best := h[js] - c*d*d
-		sum := 1.0
+		// The scans record each term's exponent (-Inf for a dropped
+		// one) and the exps follow in one vector call (expShift): one
+		// expNeg per term was a third of a rebuild.
 		ex := s.ex[:n]
-		ex[js] = 1
+		ex[js] = 0
 		lo, hi := js, js
 		// Right of j*: once past i the distance only grows, so suf bounds
 		// everything further out.
@@ -137,9 +140,9 @@ func lseLine(out, h []float64, c, drop float64, s *lseScratch, rec *windows) {
 			if j >= i && suf[j]-cd-best < -drop {
 				break
 			}
+			ex[j] = ninf
 			if t := h[j] - cd - best; t > -drop {
-				ex[j] = expNeg(t)
-				sum += ex[j]
+				ex[j] = t
 				hi = j
 			}
 		}
@@ -149,24 +152,24 @@ func lseLine(out, h []float64, c, drop float64, s *lseScratch, rec *windows) {
 			if j <= i && pre[j]-cd-best < -drop {
 				break
 			}
+			ex[j] = ninf
 			if t := h[j] - cd - best; t > -drop {
-				ex[j] = expNeg(t)
-				sum += ex[j]
+				ex[j] = t
 				lo = j
 			}
 		}
+		win := ex[lo : hi+1]
+		expShift(win, win, s.zero[:len(win)], 0)
+		sum := 0.0
+		for _, x := range win {
+			sum += x
+		}
 		out[i] = best + math.Log(sum)
 		if rec != nil {
-			// The terms kept in the sum, from ex (the same test picks them).
-			w := rec.grow(hi - lo + 1)
+			w := rec.grow(len(win))
 			inv := 1 / sum
-			for j := lo; j <= hi; j++ {
-				d := float64(j) - fi
-				if t := h[j] - c*d*d - best; t > -drop || j == js {
-					w[j-lo] = ex[j] * inv
-				} else {
-					w[j-lo] = 0
-				}
+			for j, x := range win {
+				w[j] = x * inv
 			}
 			rec.add(lo, w)
 		}
