@@ -265,9 +265,7 @@ func (st *logIter) step(omega float64) float64 {
 				i1 := min(i0+len(m), len(a))
 				mb := m[:i1-i0]
 				expSum(mb, F[i0:i1], lkv[i0:i1])
-				for i, x := range mb {
-					v.add(x, a[i0+i])
-				}
+				v.s += sumAbsDiff(mb, a[i0:i1])
 			}
 		} else {
 			for i, a := range lv.a[k] {

@@ -242,12 +242,24 @@ func (st *scalingIter) step(omega float64) float64 {
 		kv := st.kv[k]
 		st.k.Apply(kv, v, st.tmp[k])
 		var vi violation
-		for i, a := range lv.a[k] {
-			if lam != 1 && a > 0 {
-				// u = (a / K v)^lambda: u K v = a^lambda (K v)^(1 - lambda).
-				a = math.Pow(a, lam) * math.Pow(kv[i], 1-lam)
+		if lam == 1 {
+			var m [256]float64 // u K v a block at a time (see sumAbsDiff)
+			a, u := lv.a[k], st.u[k]
+			for i0 := 0; i0 < len(a); i0 += len(m) {
+				mb := m[:min(len(m), len(a)-i0)]
+				for i := range mb {
+					mb[i] = u[i0+i] * kv[i0+i]
+				}
+				vi.s += sumAbsDiff(mb, a[i0:])
 			}
-			vi.add(st.u[k][i]*kv[i], a)
+		} else {
+			for i, a := range lv.a[k] {
+				if a > 0 {
+					// u = (a / K v)^lambda: u K v = a^lambda (K v)^(1 - lambda).
+					a = math.Pow(a, lam) * math.Pow(kv[i], 1-lam)
+				}
+				vi.add(st.u[k][i]*kv[i], a)
+			}
 		}
 		st.resid[k] = vi.value(lv.mass[k])
 	})
