@@ -19,7 +19,8 @@ import "math"
 // (exactly) as soon as the input leaves that range or changes where it is
 // -Inf. TestAbsorbedKernel checks it against the full sum.
 //
-// The windows are the instance's memory (absorbBytes). Balanced problems
+// The windows are the instance's memory (absorbBytes); plain balanced
+// solves keep them in single precision (see single). Balanced problems
 // use a narrower pair, 40 and 4.5, with the same exp(-22): windows of 13
 // instead of 15 weights at epsilon one squared pixel, so that all 16
 // streams of 8 inputs of 512^2 fit the absorption budget (12 did, and the 4
@@ -36,17 +37,29 @@ const (
 
 // windows holds the weights of every output of a pass: output o's weights
 // are w[off[o]:off[o+1]] for inputs lo[o], lo[o]+1, ... of its line.
+//
+// With single set the weights are kept in w32, rounded to single precision
+// (see absKernel.single).
 type windows struct {
 	lo, off []int32
 	w       []float64
+	single  bool
+	w32     []float32
+	scr     []float64 // one window, before rounding
 }
 
 func (r *windows) reset() {
-	r.lo, r.off, r.w = r.lo[:0], append(r.off[:0], 0), r.w[:0]
+	r.lo, r.off, r.w, r.w32 = r.lo[:0], append(r.off[:0], 0), r.w[:0], r.w32[:0]
 }
 
-// grow appends n weights and returns them to be filled.
+// grow returns n weights of the next window to be filled.
 func (r *windows) grow(n int) []float64 {
+	if r.single {
+		if cap(r.scr) < n {
+			r.scr = make([]float64, n)
+		}
+		return r.scr[:n]
+	}
 	if len(r.w)+n <= cap(r.w) {
 		r.w = r.w[:len(r.w)+n] // lseLine writes every weight
 	} else {
@@ -55,12 +68,19 @@ func (r *windows) grow(n int) []float64 {
 	return r.w[len(r.w)-n:]
 }
 
-// add closes one output's window (grow was called for its weights).
-func (r *windows) add(lo int, _ []float64) {
+// add closes one output's window, whose weights grow returned as w.
+func (r *windows) add(lo int, w []float64) {
 	if r == nil {
 		return
 	}
 	r.lo = append(r.lo, int32(lo))
+	if r.single {
+		for _, x := range w {
+			r.w32 = append(r.w32, float32(x))
+		}
+		r.off = append(r.off, int32(len(r.w32)))
+		return
+	}
 	r.off = append(r.off, int32(len(r.w)))
 }
 
@@ -82,25 +102,51 @@ type absKernel struct {
 	// errors by 1 / (1 - lambda^2) (measured: stalled at 5.6e-8 instead
 	// of reaching 1e-8 at 10^6 epsilon), so it keeps math.Log.
 	fast bool
+	// single keeps the weights in single precision: the window sums read
+	// the weights from memory once per application, and at 512^2 the 16
+	// streams' weights (870 MB in double) made the iteration wait on
+	// memory. Each weight is then off by at most 2^-24 of itself, so an
+	// output's log by at most 6e-8: more than the truncation's exp(-22),
+	// so a solve that meets its tolerance with such kernels checks its
+	// residual with the full kernel (logIter.verify) and falls back to
+	// double where that check fails.
+	single bool
 }
 
 // newAbsKernel returns an instance for a balanced problem (the table log
-// and the narrow windows) or not.
-func newAbsKernel(k *logKernel, balanced bool) *absKernel {
+// and the narrow windows) or not, with its weights in single precision or
+// not.
+func newAbsKernel(k *logKernel, balanced, single bool) *absKernel {
 	n := k.rows * k.cols
 	a := &absKernel{k: k, ref: make([]float64, n), out0: make([]float64, n), drop: absorbDrop, max: absorbMax, fast: balanced}
 	if balanced {
 		a.drop, a.max = narrowDrop, narrowMax
 	}
+	a.setSingle(single)
+	return a
+}
+
+// setSingle sets the weights' precision; the next application rebuilds.
+func (a *absKernel) setSingle(single bool) {
+	k := a.k
+	n := k.rows * k.cols
+	a.single, a.built = single, false
+	a.p1.single, a.p2.single = single, single
 	// The windows' expected size up front: growing them by doubling left
 	// twice their size as garbage per instance and level (measured: 377 MB
 	// allocated in a 128^2 solve whose windows hold 63 MB).
 	window := func(c float64, line int) int { return n * min(line, int(2*math.Sqrt(a.drop/c))+1) }
-	a.p1.w = make([]float64, 0, window(k.cx, k.cols))
-	a.p2.w = make([]float64, 0, window(k.cy, k.rows))
+	if single {
+		a.p1.w, a.p2.w = nil, nil
+		a.p1.w32 = make([]float32, 0, window(k.cx, k.cols))
+		a.p2.w32 = make([]float32, 0, window(k.cy, k.rows))
+	} else {
+		a.p1.w32, a.p2.w32 = nil, nil
+		a.p1.w = make([]float64, 0, window(k.cx, k.cols))
+		a.p2.w = make([]float64, 0, window(k.cy, k.rows))
+	}
 	a.p1.lo, a.p1.off = make([]int32, 0, n), make([]int32, 0, n+1)
 	a.p2.lo, a.p2.off = make([]int32, 0, n), make([]int32, 0, n+1)
-	return a
 }
 
 // near reports whether src, less a constant c, is within absorbMax of the
@@ -183,6 +229,16 @@ func (a *absKernel) apply(dst, src, x []float64, s *lseScratch) {
 func dotPassGo(out []float64, stride int, r *windows, first, n int, x []float64) {
 	for o := 0; o < n; o++ {
 		q := first + o
+		if r.single {
+			w := r.w32[r.off[q]:r.off[q+1]]
+			xs := x[r.lo[q] : int(r.lo[q])+len(w)]
+			s := 0.0
+			for j, v := range w {
+				s += float64(v) * xs[j]
+			}
+			out[o*stride] = s
+			continue
+		}
 		out[o*stride] = dotWindow(r.w[r.off[q]:r.off[q+1]], x[r.lo[q]:])
 	}
 }

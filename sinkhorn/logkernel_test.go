@@ -4,6 +4,8 @@ import (
 	"math"
 	"math/rand/v2"
 	"testing"
+
+	"barygrid/grid"
 )
 
 // fullLSE is the definition, summed over every term with one max shift per
@@ -163,8 +165,16 @@ func TestAbsorbedKernel(t *testing.T) {
 			h0[i] = math.Inf(-1)
 		}
 	}
-	for _, balanced := range []bool{false, true} {
-		a := newAbsKernel(newLogKernel(rows, cols, dx, dy, eps), balanced)
+	// Single-precision weights are each within 2^-24 of themselves, so each
+	// pass's sum within a factor 1 +- 2^-24 and the log of an output
+	// within 2^-23 after both passes (standard rounding fact).
+	for _, mode := range []struct{ balanced, single bool }{{false, false}, {true, false}, {true, true}} {
+		balanced := mode.balanced
+		a := newAbsKernel(newLogKernel(rows, cols, dx, dy, eps), balanced, mode.single)
+		tol := 1e-12
+		if mode.single {
+			tol = 0x1p-23
+		}
 		got := make([]float64, rows*cols)
 		x, sc := make([]float64, rows*cols), newLSEScratch(rows, cols)
 		worst := 0.0
@@ -184,8 +194,8 @@ func TestAbsorbedKernel(t *testing.T) {
 			for i := range got {
 				e := math.Abs(got[i] - want[i])
 				worst = math.Max(worst, e)
-				if e > 1e-12 {
-					t.Fatalf("balanced %v, trial %d (drift %g): pixel %d: %.15g, dense %.15g", balanced, trial, amp, i, got[i], want[i])
+				if e > tol {
+					t.Fatalf("%+v, trial %d (drift %g): pixel %d: %.15g, dense %.15g", mode, trial, amp, i, got[i], want[i])
 				}
 			}
 			rebuilt := a.builds > before
@@ -193,7 +203,7 @@ func TestAbsorbedKernel(t *testing.T) {
 				t.Errorf("balanced %v, trial %d (drift %g): rebuilt %v", balanced, trial, amp, rebuilt)
 			}
 		}
-		t.Logf("balanced %v: largest error in the log of an output: %.3g", balanced, worst)
+		t.Logf("%+v: largest error in the log of an output: %.3g", mode, worst)
 	}
 }
 
@@ -255,6 +265,24 @@ func TestDotPass(t *testing.T) {
 			t.Errorf("output %d: %v, want %v", i, got[i], want[i])
 		}
 	}
+	// The same windows in single precision: assembly against Go, and both
+	// within 2^-24 (relative, the weights are positive) of the double sums.
+	var r32 windows
+	r32.single = true
+	r32.reset()
+	for q := 0; q < n; q++ {
+		w := r32.grow(int(r.off[q+1] - r.off[q]))
+		copy(w, r.w[r.off[q]:r.off[q+1]])
+		r32.add(int(r.lo[q]), w)
+	}
+	got32, want32 := make([]float64, n*stride), make([]float64, n*stride)
+	dotPass(got32, stride, &r32, 0, n, x)
+	dotPassGo(want32, stride, &r32, 0, n, x)
+	for i := range want32 {
+		if math.Abs(got32[i]-want32[i]) > 1e-14*math.Max(1, want32[i]) || math.Abs(got32[i]-want[i]) > 0x1p-24*want[i]+1e-15 {
+			t.Errorf("single output %d: %v (Go %v), double %v", i, got32[i], want32[i], want[i])
+		}
+	}
 	// A pass whose windows are all empty (every input -Inf) sums to zero.
 	var none windows
 	none.reset()
@@ -274,5 +302,64 @@ func TestDotPass(t *testing.T) {
 		if math.Abs(got[o*stride]-want[(o-1)*stride+stride]) > 1e-14*math.Max(1, want[o*stride]) {
 			t.Errorf("offset output %d: %v, want %v", o, got[o*stride], want[o*stride])
 		}
+	}
+}
+
+// A solve whose absorbed kernels keep single-precision weights reports the
+// residual of the full log-sum-exp kernel (recomputed here from its final
+// potentials, the definition of the first-marginal violation, Benamou et
+// al. 2015). Where the full kernel's residual misses the tolerance, or the
+// residual stalls, verify puts the kernels back in double precision; a
+// solve below singleTol never uses single precision.
+func TestSinglePrecisionResidualChecked(t *testing.T) {
+	fs := []*grid.Field{gaussField(40, 40, 12, 14, 9), gaussField(40, 40, 25, 22, 16), gaussField(40, 40, 18, 30, 6)}
+	solve := func(tol float64) (*problem, *Result, *logIter) {
+		p, err := setup(fs, Settings{Epsilon: 1, Tol: tol, Method: MethodLog, SingleScale: true, MaxIter: 100000})
+		if err != nil {
+			t.Fatal(err)
+		}
+		res, it := p.solve()
+		st, ok := it.(*logIter)
+		if !ok || res.Status != Converged || st.abs[0] == nil {
+			t.Fatalf("tol %g: %T, status %v", tol, it, res.Status)
+		}
+		return p, res, st
+	}
+	p, res, st := solve(1e-6)
+	if !st.single || !st.abs[0].single {
+		t.Fatalf("tol 1e-6: single precision not kept")
+	}
+	lkv, tmp := make([]float64, p.n), make([]float64, p.n)
+	worst := 0.0
+	for k, a := range p.a {
+		st.k.apply(lkv, st.G[k], tmp, newLSEScratch(p.rows, p.cols))
+		s, mass := 0.0, 0.0
+		for i := range a {
+			m := 0.0
+			if !math.IsInf(st.F[k][i], -1) {
+				m = math.Exp(st.F[k][i] + lkv[i])
+			}
+			s += math.Abs(m - a[i])
+			mass += a[i]
+		}
+		worst = math.Max(worst, s/mass)
+	}
+	if worst > 1e-6 || math.Abs(worst-res.Residual) > 1e-9 {
+		t.Errorf("tol 1e-6: reported residual %.6g, full kernel's %.6g", res.Residual, worst)
+	}
+	// A tolerance the state does not meet with the full kernel: the
+	// kernels go back to double and the stage goes on.
+	if _, more := st.verify(1e-12, 1e-11); !more || st.single || st.abs[0].single {
+		t.Errorf("a residual the full kernel does not confirm was accepted (single %v)", st.single)
+	}
+	// A stalled residual within 100 tol does the same.
+	_, _, st = solve(1e-6)
+	st.verify(5e-5, 1e-6)
+	if _, more := st.verify(4e-5, 1e-6); !more || st.single {
+		t.Errorf("a stalled residual kept single precision")
+	}
+	_, _, st = solve(1e-8)
+	if st.single || st.abs[0].single {
+		t.Errorf("tol 1e-8 (below singleTol) used single precision")
 	}
 }

@@ -65,3 +65,70 @@ store:
 donep:
 	VZEROUPPER
 	RET
+
+// func dotPass32AVX(out *float64, stride int, w *float32, off, lo *int32, x *float64, n int)
+// As dotPassAVX with single-precision weights, widened to double as they
+// load; the sums stay in double.
+TEXT ·dotPass32AVX(SB), NOSPLIT, $0-56
+	MOVQ out+0(FP), DI
+	MOVQ stride+8(FP), R8
+	SHLQ $3, R8
+	MOVQ w+16(FP), SI
+	MOVQ off+24(FP), R9
+	MOVQ lo+32(FP), R10
+	MOVQ x+40(FP), R11
+	MOVQ n+48(FP), CX
+	TESTQ CX, CX
+	JLE done32
+loop32o:
+	MOVLQSX (R9), AX
+	MOVLQSX 4(R9), BX
+	SUBQ AX, BX
+	LEAQ (SI)(AX*4), R12
+	MOVLQSX (R10), DX
+	LEAQ (R11)(DX*8), R13
+	VXORPD Y0, Y0, Y0
+	VXORPD Y1, Y1, Y1
+loop32_8:
+	CMPQ BX, $8
+	JL tail32_4
+	VCVTPS2PD (R12), Y2
+	VCVTPS2PD 16(R12), Y3
+	VFMADD231PD (R13), Y2, Y0
+	VFMADD231PD 32(R13), Y3, Y1
+	ADDQ $32, R12
+	ADDQ $64, R13
+	SUBQ $8, BX
+	JMP loop32_8
+tail32_4:
+	VADDPD Y1, Y0, Y0
+	CMPQ BX, $4
+	JL hsum32
+	VCVTPS2PD (R12), Y2
+	VFMADD231PD (R13), Y2, Y0
+	ADDQ $16, R12
+	ADDQ $32, R13
+	SUBQ $4, BX
+hsum32:
+	VEXTRACTF128 $1, Y0, X1
+	VADDPD X1, X0, X0
+	VHADDPD X0, X0, X0
+tail32_1:
+	TESTQ BX, BX
+	JE store32
+	VCVTSS2SD (R12), X2, X2
+	VFMADD231SD (R13), X2, X0
+	ADDQ $4, R12
+	ADDQ $8, R13
+	DECQ BX
+	JMP tail32_1
+store32:
+	VMOVSD X0, (DI)
+	ADDQ R8, DI
+	ADDQ $4, R9
+	ADDQ $4, R10
+	DECQ CX
+	JNZ loop32o
+done32:
+	VZEROUPPER
+	RET
