@@ -1,10 +1,20 @@
 package sinkhorn
 
 //go:noescape
-func dotPass32AVX(out *float64, stride int, w *float32, off, lo *int32, x *float64, n int)
+func dotPass32AVX(out *float64, stride int, w *float32, off, lo *int32, x *float64, n int, m32 *int32, m64 *int64)
+
+// tailMask32[t] and tailMask64[t] select the first t of four lanes.
+var tailMask32, tailMask64 = func() (m32 [4][4]int32, m64 [4][4]int64) {
+	for t := range 4 {
+		for l := range t {
+			m32[t][l], m64[t][l] = -1, -1
+		}
+	}
+	return
+}()
 
 //go:noescape
-func dotPassAVX(out *float64, stride int, w *float64, off, lo *int32, x *float64, n int)
+func dotPassAVX(out *float64, stride int, w *float64, off, lo *int32, x *float64, n int, m64 *int64)
 
 // dotPass writes, for the n outputs of one line of a pass (their window
 // offsets off[0..n] and starts lo[0..n-1] into x), the window sums to
@@ -19,13 +29,13 @@ func dotPass(out []float64, stride int, r *windows, first, n int, x []float64) {
 	if useAVX && len(r.w32) > 0 { // single precision (windows.single)
 		_ = out[(n-1)*stride]
 		_ = r.off[first+n]
-		dotPass32AVX(&out[0], stride, &r.w32[0], &r.off[first], &r.lo[first], &x[0], n)
+		dotPass32AVX(&out[0], stride, &r.w32[0], &r.off[first], &r.lo[first], &x[0], n, &tailMask32[0][0], &tailMask64[0][0])
 		return
 	}
 	if useAVX && len(r.w) > 0 { // with no weights at all (inputs all -Inf) there is no &r.w[0]
 		_ = out[(n-1)*stride]
 		_ = r.off[first+n]
-		dotPassAVX(&out[0], stride, &r.w[0], &r.off[first], &r.lo[first], &x[0], n)
+		dotPassAVX(&out[0], stride, &r.w[0], &r.off[first], &r.lo[first], &x[0], n, &tailMask64[0][0])
 		return
 	}
 	dotPassGo(out, stride, r, first, n, x)

@@ -1,8 +1,10 @@
 #include "textflag.h"
 
-// func dotPassAVX(out *float64, stride int, w *float64, off, lo *int32, x *float64, n int)
-// For o in [0, n): out[o*stride] = sum_j w[off[o]+j] * x[lo[o]+j], j < off[o+1]-off[o].
-TEXT ·dotPassAVX(SB), NOSPLIT, $0-56
+// func dotPassAVX(out *float64, stride int, w *float64, off, lo *int32, x *float64, n int, m64 *int64)
+// For o in [0, n): out[o*stride] = sum_j w[off[o]+j] * x[lo[o]+j], j < off[o+1]-off[o];
+// m64 points to tailMask64.
+TEXT ·dotPassAVX(SB), NOSPLIT, $0-64
+	MOVQ m64+56(FP), R15
 	MOVQ out+0(FP), DI
 	MOVQ stride+8(FP), R8
 	SHLQ $3, R8
@@ -43,19 +45,19 @@ tail4:
 	ADDQ $32, R13
 	SUBQ $4, BX
 hsum:
+	// The last one to three terms by masked loads (see dotPass32AVX).
+	TESTQ BX, BX
+	JE hsum2
+	MOVQ BX, DX
+	SHLQ $5, DX
+	VMOVDQU (R15)(DX*1), Y6
+	VMASKMOVPD (R12), Y6, Y2
+	VMASKMOVPD (R13), Y6, Y3
+	VFMADD231PD Y3, Y2, Y0
+hsum2:
 	VEXTRACTF128 $1, Y0, X1
 	VADDPD X1, X0, X0
 	VHADDPD X0, X0, X0
-tail1:
-	TESTQ BX, BX
-	JE store
-	VMOVSD (R12), X2
-	VFMADD231SD (R13), X2, X0
-	ADDQ $8, R12
-	ADDQ $8, R13
-	DECQ BX
-	JMP tail1
-store:
 	VMOVSD X0, (DI)
 	ADDQ R8, DI
 	ADDQ $4, R9
@@ -66,10 +68,10 @@ donep:
 	VZEROUPPER
 	RET
 
-// func dotPass32AVX(out *float64, stride int, w *float32, off, lo *int32, x *float64, n int)
+// func dotPass32AVX(out *float64, stride int, w *float32, off, lo *int32, x *float64, n int, m32 *int32, m64 *int64)
 // As dotPassAVX with single-precision weights, widened to double as they
 // load; the sums stay in double.
-TEXT ·dotPass32AVX(SB), NOSPLIT, $0-56
+TEXT ·dotPass32AVX(SB), NOSPLIT, $0-72
 	MOVQ out+0(FP), DI
 	MOVQ stride+8(FP), R8
 	SHLQ $3, R8
@@ -78,6 +80,8 @@ TEXT ·dotPass32AVX(SB), NOSPLIT, $0-56
 	MOVQ lo+32(FP), R10
 	MOVQ x+40(FP), R11
 	MOVQ n+48(FP), CX
+	MOVQ m32+56(FP), R14
+	MOVQ m64+64(FP), R15
 	TESTQ CX, CX
 	JLE done32
 loop32o:
@@ -103,26 +107,30 @@ loop32_8:
 tail32_4:
 	VADDPD Y1, Y0, Y0
 	CMPQ BX, $4
-	JL hsum32
+	JL tail32_m
 	VCVTPS2PD (R12), Y2
 	VFMADD231PD (R13), Y2, Y0
 	ADDQ $16, R12
 	ADDQ $32, R13
 	SUBQ $4, BX
+tail32_m:
+	// The last one to three terms by masked loads, which neither read
+	// nor fault past the window: no serial scalar tail.
+	TESTQ BX, BX
+	JE hsum32
+	MOVQ BX, DX
+	SHLQ $4, DX
+	VMOVDQU (R14)(DX*1), X5
+	VMASKMOVPS (R12), X5, X2
+	VCVTPS2PD X2, Y2
+	SHLQ $1, DX
+	VMOVDQU (R15)(DX*1), Y6
+	VMASKMOVPD (R13), Y6, Y3
+	VFMADD231PD Y3, Y2, Y0
 hsum32:
 	VEXTRACTF128 $1, Y0, X1
 	VADDPD X1, X0, X0
 	VHADDPD X0, X0, X0
-tail32_1:
-	TESTQ BX, BX
-	JE store32
-	VCVTSS2SD (R12), X2, X2
-	VFMADD231SD (R13), X2, X0
-	ADDQ $4, R12
-	ADDQ $8, R13
-	DECQ BX
-	JMP tail32_1
-store32:
 	VMOVSD X0, (DI)
 	ADDQ R8, DI
 	ADDQ $4, R9
