@@ -21,13 +21,17 @@ import "math"
 //
 // The windows are the instance's memory (absorbBytes); plain balanced
 // solves keep them in single precision (see single). Balanced problems
-// use a narrower pair, 40 and 4.5, with the same exp(-22): windows of 13
-// instead of 15 weights at epsilon one squared pixel, so that all 16
-// streams of 8 inputs of 512^2 fit the absorption budget (12 did, and the 4
-// others' exact sums made a full-grid iteration 3x slower). Unbalanced
-// problems keep 50 and 7: their slow mass mode amplifies the larger typical
-// truncation error (with the narrow pair, penalty 2e6 at tol 1e-8 stalled
-// at 1.9e-8).
+// with double-precision windows use a narrower pair, 40 and 4.5, with the
+// same exp(-22): windows of 13 instead of 15 weights at epsilon one
+// squared pixel, so that all 16 streams of 8 inputs of 512^2 fit the
+// absorption budget (12 did, and the 4 others' exact sums made a full-grid
+// iteration 3x slower). Single-precision windows take 50 and 7 at half the
+// bytes: a wider range between rebuilds, and a rebuild costs tens of
+// applications (measured: rebuilds 12 -> 8 per stream over 159 full-grid
+// iterations at 512^2, CPU 96 -> 77 s; at 128^2, 11.2-11.8 -> 10.0-10.8 s).
+// Unbalanced problems keep 50 and 7 too: their slow mass mode amplifies
+// the larger typical truncation error (with the narrow pair, penalty 2e6 at
+// tol 1e-8 stalled at 1.9e-8).
 const (
 	absorbDrop = 50.0
 	absorbMax  = 7.0
@@ -118,10 +122,7 @@ type absKernel struct {
 // not.
 func newAbsKernel(k *logKernel, balanced, single bool) *absKernel {
 	n := k.rows * k.cols
-	a := &absKernel{k: k, ref: make([]float64, n), out0: make([]float64, n), drop: absorbDrop, max: absorbMax, fast: balanced}
-	if balanced {
-		a.drop, a.max = narrowDrop, narrowMax
-	}
+	a := &absKernel{k: k, ref: make([]float64, n), out0: make([]float64, n), fast: balanced}
 	a.setSingle(single)
 	return a
 }
@@ -132,6 +133,10 @@ func (a *absKernel) setSingle(single bool) {
 	n := k.rows * k.cols
 	a.single, a.built = single, false
 	a.p1.single, a.p2.single = single, single
+	a.drop, a.max = absorbDrop, absorbMax
+	if a.fast && !single {
+		a.drop, a.max = narrowDrop, narrowMax
+	}
 	// The windows' expected size up front: growing them by doubling left
 	// twice their size as garbage per instance and level (measured: 377 MB
 	// allocated in a 128^2 solve whose windows hold 63 MB).

@@ -140,7 +140,7 @@ func MemoryEstimate(k, rows, cols int) float64 {
 // per task).
 func absorbBytes(lv *level, eps float64, balanced, single bool) float64 {
 	drop, size := absorbDrop, 8.0
-	if balanced {
+	if balanced && !single {
 		drop = narrowDrop
 	}
 	if single {
