@@ -51,7 +51,7 @@ func BenchmarkKernel(b *testing.B) {
 		// Absorbed: built once, then applied to inputs within range, as in
 		// the iteration between rebuilds.
 		b.Run(fmt.Sprintf("absorbed/eps=%g", eps), func(b *testing.B) {
-			a := newAbsKernel(newLogKernel(128, 128, 1, 1, eps), true, true) // as balanced problems run it
+			a := newAbsKernel(newLogKernel(128, 128, 1, 1, eps), true, true) // as plain balanced solves run it (single-precision windows)
 			src := make([]float64, 128*128)
 			for r := 0; r < 128; r++ {
 				for c := 0; c < 128; c++ {

@@ -56,3 +56,33 @@ func expSumGo(m, a, b []float64) {
 		}
 	}
 }
+
+// marginalL1 returns sum_i |exp(F_i + lkv_i) - a_i|, the L1 violation of
+// the marginal u K v = exp(F + log K v) against a (balanced problems),
+// a block at a time: the exps four lanes at once (expSum), the sum as
+// sumAbsDiff's (nonnegative terms).
+func marginalL1(F, lkv, a []float64) float64 {
+	var m [256]float64
+	s := 0.0
+	for i0 := 0; i0 < len(a); i0 += len(m) {
+		i1 := min(i0+len(m), len(a))
+		expSum(m[:i1-i0], F[i0:i1], lkv[i0:i1])
+		s += sumAbsDiff(m[:i1-i0], a[i0:i1])
+	}
+	return s
+}
+
+// productL1 is marginalL1 in the scaling representation: sum_i |u_i kv_i -
+// a_i|.
+func productL1(u, kv, a []float64) float64 {
+	var m [256]float64
+	s := 0.0
+	for i0 := 0; i0 < len(a); i0 += len(m) {
+		mb := m[:min(len(m), len(a)-i0)]
+		for i := range mb {
+			mb[i] = u[i0+i] * kv[i0+i]
+		}
+		s += sumAbsDiff(mb, a[i0:])
+	}
+	return s
+}

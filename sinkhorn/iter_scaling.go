@@ -241,18 +241,10 @@ func (st *scalingIter) step(omega float64) float64 {
 		}
 		kv := st.kv[k]
 		st.k.Apply(kv, v, st.tmp[k])
-		var vi violation
 		if lam == 1 {
-			var m [256]float64 // u K v a block at a time (see sumAbsDiff)
-			a, u := lv.a[k], st.u[k]
-			for i0 := 0; i0 < len(a); i0 += len(m) {
-				mb := m[:min(len(m), len(a)-i0)]
-				for i := range mb {
-					mb[i] = u[i0+i] * kv[i0+i]
-				}
-				vi.s += sumAbsDiff(mb, a[i0:])
-			}
+			st.resid[k] = productL1(st.u[k], kv, lv.a[k]) / lv.mass[k]
 		} else {
+			var vi violation
 			for i, a := range lv.a[k] {
 				if a > 0 {
 					// u = (a / K v)^lambda: u K v = a^lambda (K v)^(1 - lambda).
@@ -260,8 +252,8 @@ func (st *scalingIter) step(omega float64) float64 {
 				}
 				vi.add(st.u[k][i]*kv[i], a)
 			}
+			st.resid[k] = vi.value(lv.mass[k])
 		}
-		st.resid[k] = vi.value(lv.mass[k])
 	})
 	r := slices.Max(st.resid)
 	if st.mode != nil {
