@@ -86,3 +86,23 @@ func productL1(u, kv, a []float64) float64 {
 	}
 	return s
 }
+
+// relaxDivGo is relaxDiv's scalar form.
+func relaxDivGo(dst, num, den, test []float64, omega float64) {
+	num, den, test = num[:len(dst)], den[:len(dst)], test[:len(dst)]
+	for i, old := range dst {
+		t := 0.0
+		if test[i] > 0 {
+			t = num[i] / den[i]
+		}
+		dst[i] = relax(old, t, omega)
+	}
+}
+
+// logAxpyGo is logAxpy's scalar form (fused as the vector one is).
+func logAxpyGo(acc, x []float64, w float64) {
+	x = x[:len(acc)]
+	for i, v := range x {
+		acc[i] = math.FMA(w, fastLog(v), acc[i])
+	}
+}

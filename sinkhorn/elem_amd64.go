@@ -96,3 +96,44 @@ func logAdd(dst, out0 []float64, shift float64) {
 	}
 	logAddGo(dst[i:], out0[i:len(dst)], shift)
 }
+
+//go:noescape
+func relaxDivAVX(dst, num, den, test *float64, n int, c float64, plain int, cst *float64)
+
+//go:noescape
+func logAxpyAVX(acc, x *float64, n int, w float64, c, ltab, itab *float64) int
+
+// relaxDiv writes dst[i] = relax(dst[i], t, omega), t = num[i] / den[i]
+// where test[i] > 0 and 0 elsewhere: the scaling iteration's updates, which
+// took a quarter of a solve at epsilon 16 one division at a time.
+func relaxDiv(dst, num, den, test []float64, omega float64) {
+	n4 := 0
+	if useAVX && len(dst) >= 4 {
+		n4 = len(dst) &^ 3
+		_, _, _ = num[n4-1], den[n4-1], test[n4-1]
+		plain := 0
+		if omega == 1 {
+			plain = 1
+		}
+		relaxDivAVX(&dst[0], &num[0], &den[0], &test[0], n4, 1-omega, plain, &elemConsts[0])
+	}
+	relaxDivGo(dst[n4:], num[n4:], den[n4:], test[n4:len(dst)], omega)
+}
+
+// logAxpy adds w log(x[i]) to acc[i] (fastLog; math.Log where x is zero,
+// subnormal or not finite).
+func logAxpy(acc, x []float64, w float64) {
+	i := 0
+	if useAVX && len(acc) >= 4 {
+		n4 := len(acc) &^ 3
+		_ = x[len(acc)-1]
+		for i < n4 {
+			i += logAxpyAVX(&acc[i], &x[i], n4-i, w, &elemConsts[0], &logTab[0], &invTab[0])
+			if i < n4 { // a group with an x that is not a positive normal
+				logAxpyGo(acc[i:i+4], x[i:i+4], w)
+				i += 4
+			}
+		}
+	}
+	logAxpyGo(acc[i:], x[i:len(acc)], w)
+}

@@ -179,3 +179,113 @@ logend:
 	MOVQ AX, ret+56(FP)
 	VZEROUPPER
 	RET
+
+// dst[i] = relax(dst[i], t, omega) with t = num[i] / den[i] where test[i] >
+// 0 and 0 elsewhere (the scaling updates u = a / K v, v = b / K u), for n a
+// multiple of 4; c = 1 - omega, plain != 0 when omega is 1 (dst = t).
+TEXT ·relaxDivAVX(SB), NOSPLIT, $0-64
+	MOVQ dst+0(FP), DI
+	MOVQ num+8(FP), SI
+	MOVQ den+16(FP), DX
+	MOVQ test+24(FP), R8
+	MOVQ n+32(FP), CX
+	VBROADCASTSD c+40(FP), Y15
+	MOVQ plain+48(FP), BX
+	MOVQ cst+56(FP), R9
+	VMOVUPD 320(R9), Y14      // 1
+	VADDPD Y15, Y14, Y13      // 1 + c
+	VSUBPD Y15, Y14, Y12      // 1 - c
+	VXORPD Y11, Y11, Y11      // 0
+	TESTQ CX, CX
+	JLE rdend
+rdloop:
+	VMOVUPD (SI), Y0
+	VDIVPD (DX), Y0, Y4       // t = num / den
+	VMOVUPD (R8), Y2
+	VCMPPD $0x1e, Y11, Y2, Y5 // test > 0 (GT_OQ)
+	VANDPD Y5, Y4, Y4
+	TESTQ BX, BX
+	JNE rdstore
+	VMOVUPD (DI), Y3          // old
+	VMULPD Y12, Y4, Y6
+	VFMADD231PD Y13, Y3, Y6   // (1 + c) old + (1 - c) t
+	VMULPD Y13, Y4, Y7
+	VFMADD231PD Y12, Y3, Y7   // (1 - c) old + (1 + c) t
+	VMULPD Y6, Y4, Y8
+	VDIVPD Y7, Y8, Y8         // t p / q
+	VCMPPD $0x1e, Y11, Y3, Y9 // old > 0
+	VCMPPD $0x1e, Y11, Y4, Y10 // t > 0
+	VANDPD Y10, Y9, Y9
+	VBLENDVPD Y9, Y8, Y4, Y4
+rdstore:
+	VMOVUPD Y4, (DI)
+	ADDQ $32, DI
+	ADDQ $32, SI
+	ADDQ $32, DX
+	ADDQ $32, R8
+	SUBQ $4, CX
+	JG rdloop
+rdend:
+	VZEROUPPER
+	RET
+
+// acc[i] += w log(x[i]) by fastLog's reduction, for n a multiple of 4. It
+// stops before the first group of four with an x that is not a positive
+// normal number and returns how many entries it wrote.
+TEXT ·logAxpyAVX(SB), NOSPLIT, $0-64
+	MOVQ acc+0(FP), DI
+	MOVQ x+8(FP), SI
+	MOVQ n+16(FP), CX
+	VBROADCASTSD w+24(FP), Y14
+	MOVQ c+32(FP), R9
+	MOVQ ltab+40(FP), R10
+	MOVQ itab+48(FP), R11
+	XORQ AX, AX
+	TESTQ CX, CX
+	JLE laend
+laloop:
+	VMOVUPD (SI), Y0
+	VCMPPD $0x1d, 384(R9), Y0, Y1 // x >= smallest normal (GE_OQ)
+	VCMPPD $0x11, 32(R9), Y0, Y2  // x < +Inf (LT_OQ)
+	VANDPD Y2, Y1, Y1
+	VMOVMSKPD Y1, BX
+	CMPQ BX, $15
+	JNE laend
+	VPSRLQ $44, Y0, Y3
+	VPAND 416(R9), Y3, Y3          // j = top 8 mantissa bits
+	VPCMPEQD Y8, Y8, Y8
+	VXORPD Y9, Y9, Y9
+	VGATHERQPD Y8, (R11)(Y3*8), Y9 // 1 / (1 + j/256)
+	VPCMPEQD Y8, Y8, Y8
+	VXORPD Y10, Y10, Y10
+	VGATHERQPD Y8, (R10)(Y3*8), Y10 // log(1 + j/256)
+	VANDPD 448(R9), Y0, Y4         // mantissa bits
+	VORPD 480(R9), Y4, Y4          // m in [1, 2)
+	VANDPD 512(R9), Y4, Y5         // 1 + j/256
+	VSUBPD Y5, Y4, Y4
+	VMULPD Y9, Y4, Y4              // r
+	VMOVUPD 544(R9), Y6            // 1/6
+	VFNMADD213PD 576(R9), Y4, Y6   // 1/5 - r q
+	VFNMADD213PD 608(R9), Y4, Y6   // 1/4
+	VFNMADD213PD 640(R9), Y4, Y6   // 1/3
+	VFNMADD213PD 288(R9), Y4, Y6   // 1/2
+	VFNMADD213PD 320(R9), Y4, Y6   // 1
+	VMULPD Y4, Y6, Y6              // l
+	VPSRLQ $52, Y0, Y7
+	VPOR 672(R9), Y7, Y7           // 2^52 + e as a double
+	VSUBPD 704(R9), Y7, Y7         // k = e - 1023
+	VADDPD Y10, Y6, Y6             // logTab + l
+	VFMADD231PD 736(R9), Y7, Y6    // + k ln2lo
+	VFMADD231PD 768(R9), Y7, Y6    // + k ln2hi
+	VMOVUPD (DI), Y11
+	VFMADD231PD Y14, Y6, Y11       // acc + w log x
+	VMOVUPD Y11, (DI)
+	ADDQ $32, DI
+	ADDQ $32, SI
+	ADDQ $4, AX
+	SUBQ $4, CX
+	JG laloop
+laend:
+	MOVQ AX, ret+56(FP)
+	VZEROUPPER
+	RET

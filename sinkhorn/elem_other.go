@@ -13,3 +13,7 @@ func expShift(ee, src, ref []float64, shift float64) { expShiftGo(ee, src, ref, 
 func logAdd(dst, out0 []float64, shift float64) { logAddGo(dst, out0, shift) }
 
 func expSum(m, a, b []float64) { expSumGo(m, a, b) }
+
+func relaxDiv(dst, num, den, test []float64, omega float64) { relaxDivGo(dst, num, den, test, omega) }
+
+func logAxpy(acc, x []float64, w float64) { logAxpyGo(acc, x, w) }

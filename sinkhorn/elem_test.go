@@ -125,3 +125,68 @@ func TestSumAbsDiff(t *testing.T) {
 		}
 	}
 }
+
+// The scaling iteration's element-wise passes (assembly where the CPU has
+// AVX2) against their definitions: relaxDiv against relax of num / den
+// (Thibault, Chizat, Dossal, Papadakis 2017's relaxed update in its
+// rational form, as relax writes it), exactly where omega is 1 and to a few
+// ulp otherwise (FMA); logAxpy against math.Log, with zeros, subnormals
+// and infinities, which take math.Log.
+func TestScalingElementPasses(t *testing.T) {
+	rng := rand.New(rand.NewPCG(11, 12))
+	for _, n := range []int{0, 1, 3, 4, 5, 8, 13, 257} {
+		for range 20 {
+			num, den, test, old := make([]float64, n), make([]float64, n), make([]float64, n), make([]float64, n)
+			for i := range num {
+				num[i] = math.Exp(60 * (rng.Float64() - 0.5))
+				den[i] = math.Exp(60 * (rng.Float64() - 0.5))
+				old[i] = num[i] / den[i] * math.Exp(rng.Float64()-0.5)
+				test[i] = num[i]
+				switch rng.IntN(8) {
+				case 0:
+					num[i], test[i] = 0, 0
+				case 1:
+					old[i] = 0
+				case 2:
+					test[i] = -1
+				}
+			}
+			for _, omega := range []float64{1, 1.5, 1.95} {
+				got := append([]float64(nil), old...)
+				relaxDiv(got, num, den, test, omega)
+				for i := range got {
+					tt := 0.0
+					if test[i] > 0 {
+						tt = num[i] / den[i]
+					}
+					w := relax(old[i], tt, omega)
+					if omega == 1 && got[i] != w || math.Abs(got[i]-w) > 8e-16*w {
+						t.Fatalf("n %d, omega %g: relaxDiv at %d = %.17g, relax %.17g", n, omega, i, got[i], w)
+					}
+				}
+			}
+			x, acc := make([]float64, n), make([]float64, n)
+			for i := range x {
+				x[i] = math.Exp(1400 * (rng.Float64() - 0.5))
+				acc[i] = 50 * (rng.Float64() - 0.5)
+				switch rng.IntN(12) {
+				case 0:
+					x[i] = 0
+				case 1:
+					x[i] = 0x1p-1060 // subnormal
+				case 2:
+					x[i] = math.Inf(1)
+				}
+			}
+			w := rng.Float64()
+			got := append([]float64(nil), acc...)
+			logAxpy(got, x, w)
+			for i := range got {
+				want := acc[i] + w*math.Log(x[i])
+				if !(got[i] == want || math.Abs(got[i]-want) <= 8e-16*(math.Abs(acc[i])+math.Abs(w*math.Log(x[i])))) {
+					t.Fatalf("n %d: logAxpy at %d (x %g) = %.17g, math.Log %.17g", n, i, x[i], got[i], want)
+				}
+			}
+		}
+	}
+}

@@ -2,6 +2,7 @@ package fieldfile
 
 import (
 	"barygrid/io/netcdf"
+	"bufio"
 	"bytes"
 	"errors"
 	"fmt"
@@ -264,7 +265,13 @@ func WriteAtomic(path string, force bool, write func(io.Writer) error) error {
 		os.Remove(name)
 		return fmt.Errorf("%s: %v", path, unwrapPath(err))
 	}
-	if err := write(tmp); err != nil {
+	// Buffered: some encoders write a value at a time (the NPY one took
+	// 38 ms for 128^2 in 131,072 system calls).
+	bw := bufio.NewWriterSize(tmp, 1<<16)
+	if err := write(bw); err != nil {
+		return fail(err)
+	}
+	if err := bw.Flush(); err != nil {
 		return fail(err)
 	}
 	if err := tmp.Sync(); err != nil {
