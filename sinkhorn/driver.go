@@ -421,6 +421,9 @@ func upsample(pot *potentials, levels []*level, to int) *potentials {
 			if x == nil {
 				return nil
 			}
+			if finite(x) {
+				return upsampleSeparable(x, c, f)
+			}
 			out := make([]float64, f.n)
 			for r := 0; r < f.rows; r++ {
 				y := math.Min(math.Max((float64(r)-0.5)/2, 0), float64(c.rows-1))
@@ -438,6 +441,57 @@ func upsample(pot *potentials, levels []*level, to int) *potentials {
 		pot = next
 	}
 	return pot
+}
+
+func finite(x []float64) bool {
+	for _, v := range x {
+		if math.IsInf(v, 0) || math.IsNaN(v) {
+			return false
+		}
+	}
+	return true
+}
+
+// upsampleSeparable is upsample's cubic interpolation of a finite coarse
+// array as two 1-D passes, along x then along y (the same weights as
+// interp's, 8 taps per pixel instead of 16 with their checks: it had been
+// 5% of a solve at epsilon 16).
+func upsampleSeparable(x []float64, c, f *level) []float64 {
+	type tap struct {
+		at [4]int
+		w  [4]float64
+	}
+	taps := func(fine, coarse int) []tap {
+		ts := make([]tap, fine)
+		for i := range ts {
+			y := math.Min(math.Max((float64(i)-0.5)/2, 0), float64(coarse-1))
+			i0 := int(y)
+			ts[i].w = catmullRom(y - float64(i0))
+			for j := range 4 {
+				ts[i].at[j] = min(max(i0-1+j, 0), coarse-1)
+			}
+		}
+		return ts
+	}
+	tx, ty := taps(f.cols, c.cols), taps(f.rows, c.rows)
+	tmp := make([]float64, c.rows*f.cols)
+	for r := range c.rows {
+		row, out := x[r*c.cols:(r+1)*c.cols], tmp[r*f.cols:(r+1)*f.cols]
+		for q, t := range tx {
+			out[q] = t.w[0]*row[t.at[0]] + t.w[1]*row[t.at[1]] + t.w[2]*row[t.at[2]] + t.w[3]*row[t.at[3]]
+		}
+	}
+	out := make([]float64, f.n)
+	for r, t := range ty {
+		o := out[r*f.cols : (r+1)*f.cols]
+		for j := range 4 {
+			src, w := tmp[t.at[j]*f.cols:(t.at[j]+1)*f.cols], t.w[j]
+			for q := range o {
+				o[q] += w * src[q]
+			}
+		}
+	}
+	return out
 }
 
 // interp evaluates the rows x cols array x at (y, xx), in pixel units.

@@ -106,3 +106,29 @@ func logAxpyGo(acc, x []float64, w float64) {
 		acc[i] = math.FMA(w, fastLog(v), acc[i])
 	}
 }
+
+// inRangeGo is inRange's scalar form.
+func inRangeGo(a, kv, u, b, v []float64, lo, hi float64) bool {
+	kv, u, b, v = kv[:len(a)], u[:len(a)], b[:len(a)], v[:len(a)]
+	for i, x := range a {
+		if x > 0 && !(kv[i] > lo && u[i] > lo) || b[i] > 0 && !(v[i] > lo) || !(u[i] <= hi && v[i] <= hi) {
+			return false
+		}
+	}
+	return true
+}
+
+// relaxLogGo is relaxLog's scalar form.
+func relaxLogGo(dst, p, q []float64, omega float64, both bool) {
+	ninf := math.Inf(-1)
+	p, q = p[:len(dst)], q[:len(dst)]
+	for i, old := range dst {
+		t := p[i] - q[i]
+		if p[i] == ninf || both && q[i] == ninf {
+			t = ninf
+		} else if omega != 1 && old != ninf {
+			t = math.FMA(omega, t, (1-omega)*old)
+		}
+		dst[i] = t
+	}
+}

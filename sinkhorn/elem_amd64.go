@@ -137,3 +137,45 @@ func logAxpy(acc, x []float64, w float64) {
 	}
 	logAxpyGo(acc[i:], x[i:len(acc)], w)
 }
+
+//go:noescape
+func rangeAVX(a, kv, u, b, v *float64, n int, lo, hi float64) int
+
+// inRange reports whether the scalings of one input are within the scaling
+// representation's range (scalingIter.health, which names the pixel when
+// they are not).
+func inRange(a, kv, u, b, v []float64, lo, hi float64) bool {
+	n4 := 0
+	if useAVX && len(a) >= 4 {
+		n4 = len(a) &^ 3
+		_, _, _, _ = kv[n4-1], u[n4-1], b[n4-1], v[n4-1]
+		if rangeAVX(&a[0], &kv[0], &u[0], &b[0], &v[0], n4, lo, hi) != 0 {
+			return false
+		}
+	}
+	return inRangeGo(a[n4:], kv[n4:], u[n4:], b[n4:], v[n4:len(a)], lo, hi)
+}
+
+//go:noescape
+func relaxLogAVX(dst, p, q *float64, n int, omega float64, plain, both int, c *float64)
+
+// relaxLog writes dst[i] = p[i] - q[i], over-relaxed against the old dst[i]
+// where that is finite: (1 - omega) dst + omega (p - q); -Inf where p[i] is
+// -Inf, or q[i] when both is set. These are the balanced log-domain updates
+// of F and G.
+func relaxLog(dst, p, q []float64, omega float64, both bool) {
+	n4 := 0
+	if useAVX && len(dst) >= 4 {
+		n4 = len(dst) &^ 3
+		_, _ = p[n4-1], q[n4-1]
+		plain, b := 0, 0
+		if omega == 1 {
+			plain = 1
+		}
+		if both {
+			b = 1
+		}
+		relaxLogAVX(&dst[0], &p[0], &q[0], n4, omega, plain, b, &elemConsts[0])
+	}
+	relaxLogGo(dst[n4:], p[n4:], q[n4:len(dst)], omega, both)
+}

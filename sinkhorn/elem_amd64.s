@@ -289,3 +289,101 @@ laend:
 	MOVQ AX, ret+56(FP)
 	VZEROUPPER
 	RET
+
+// Over n (a multiple of 4) pixels, nonzero when any breaks the scaling
+// representation's range: where a > 0, K v and u above lo; where b > 0, v
+// above lo; u and v at most hi (NaN fails every test).
+TEXT ·rangeAVX(SB), NOSPLIT, $0-72
+	MOVQ a+0(FP), SI
+	MOVQ kv+8(FP), DX
+	MOVQ u+16(FP), R8
+	MOVQ b+24(FP), R10
+	MOVQ v+32(FP), R11
+	MOVQ n+40(FP), CX
+	VBROADCASTSD lo+48(FP), Y14
+	VBROADCASTSD hi+56(FP), Y13
+	VXORPD Y12, Y12, Y12      // 0
+	VXORPD Y15, Y15, Y15      // accumulated failures
+	TESTQ CX, CX
+	JLE rgend
+rgloop:
+	VMOVUPD (R8), Y2          // u
+	VMOVUPD (R11), Y4         // v
+	VMOVUPD (SI), Y0
+	VCMPPD $0x1e, Y12, Y0, Y0 // a > 0
+	VMOVUPD (DX), Y1
+	VCMPPD $0x1e, Y14, Y1, Y1 // kv > lo
+	VCMPPD $0x1e, Y14, Y2, Y5 // u > lo
+	VANDPD Y5, Y1, Y1
+	VANDNPD Y0, Y1, Y1        // a > 0 and not (kv > lo and u > lo)
+	VORPD Y1, Y15, Y15
+	VMOVUPD (R10), Y3
+	VCMPPD $0x1e, Y12, Y3, Y3 // b > 0
+	VCMPPD $0x1e, Y14, Y4, Y6 // v > lo
+	VANDNPD Y3, Y6, Y6        // b > 0 and not v > lo
+	VORPD Y6, Y15, Y15
+	VCMPPD $0x12, Y13, Y2, Y7 // u <= hi (LE_OQ)
+	VCMPPD $0x12, Y13, Y4, Y8 // v <= hi
+	VANDPD Y8, Y7, Y7
+	VPCMPEQD Y9, Y9, Y9
+	VXORPD Y9, Y7, Y7         // not both
+	VORPD Y7, Y15, Y15
+	ADDQ $32, SI
+	ADDQ $32, DX
+	ADDQ $32, R8
+	ADDQ $32, R10
+	ADDQ $32, R11
+	SUBQ $4, CX
+	JG rgloop
+rgend:
+	VMOVMSKPD Y15, AX
+	MOVQ AX, ret+64(FP)
+	VZEROUPPER
+	RET
+
+// dst[i] = relaxed p[i] - q[i]: the log-domain updates F = log a - log K v
+// and G = log b - log K u, blended with the old value as (1 - omega) dst +
+// omega t where dst is finite and plain is 0; -Inf where p is -Inf (or q,
+// when both is nonzero). n is a multiple of 4.
+TEXT ·relaxLogAVX(SB), NOSPLIT, $0-64
+	MOVQ dst+0(FP), DI
+	MOVQ p+8(FP), SI
+	MOVQ q+16(FP), DX
+	MOVQ n+24(FP), CX
+	VBROADCASTSD omega+32(FP), Y15
+	MOVQ plain+40(FP), BX
+	MOVQ both+48(FP), R10
+	MOVQ c+56(FP), R9
+	VMOVUPD 320(R9), Y14      // 1
+	VSUBPD Y15, Y14, Y14      // 1 - omega
+	VMOVUPD (R9), Y13         // -Inf
+	TESTQ CX, CX
+	JLE rlend
+rlloop:
+	VMOVUPD (SI), Y0
+	VMOVUPD (DX), Y1
+	VSUBPD Y1, Y0, Y2         // t = p - q
+	TESTQ BX, BX
+	JNE rlinf
+	VMOVUPD (DI), Y3
+	VMULPD Y14, Y3, Y4
+	VFMADD231PD Y15, Y2, Y4   // (1 - omega) dst + omega t
+	VCMPPD $0x0c, Y13, Y3, Y5 // dst != -Inf (NEQ_OQ)
+	VBLENDVPD Y5, Y4, Y2, Y2
+rlinf:
+	VCMPPD $0x00, Y13, Y0, Y6 // p == -Inf
+	TESTQ R10, R10
+	JEQ rlset
+	VCMPPD $0x00, Y13, Y1, Y7 // q == -Inf
+	VORPD Y7, Y6, Y6
+rlset:
+	VBLENDVPD Y6, Y13, Y2, Y2
+	VMOVUPD Y2, (DI)
+	ADDQ $32, DI
+	ADDQ $32, SI
+	ADDQ $32, DX
+	SUBQ $4, CX
+	JG rlloop
+rlend:
+	VZEROUPPER
+	RET

@@ -190,3 +190,86 @@ func TestScalingElementPasses(t *testing.T) {
 		}
 	}
 }
+
+// inRange (assembly where the CPU has AVX2) against its scalar form, on
+// states with one planted violation of each kind, NaN included.
+func TestInRange(t *testing.T) {
+	rng := rand.New(rand.NewPCG(13, 14))
+	for _, n := range []int{1, 3, 4, 5, 8, 13, 64} {
+		for kind := range 9 {
+			a, kv, u, b, v := make([]float64, n), make([]float64, n), make([]float64, n), make([]float64, n), make([]float64, n)
+			for i := range a {
+				a[i], b[i] = rng.Float64(), rng.Float64()
+				if rng.IntN(5) == 0 {
+					a[i] = 0
+				}
+				kv[i], u[i], v[i] = math.Exp(200*(rng.Float64()-0.5)), math.Exp(200*(rng.Float64()-0.5)), math.Exp(200*(rng.Float64()-0.5))
+			}
+			i := rng.IntN(n)
+			a[i], b[i] = 1, 1
+			switch kind {
+			case 1:
+				kv[i] = 1e-310
+			case 2:
+				u[i] = 0
+			case 3:
+				v[i] = 1e-301
+			case 4:
+				u[i] = 1e301
+			case 5:
+				v[i] = math.Inf(1)
+			case 6:
+				u[i] = math.NaN()
+			case 7:
+				a[i], u[i], kv[i] = 0, 1e-305, 0 // no mass: small u and K v allowed
+			case 8:
+				b[i], v[i] = 0, 0 // no barycenter mass: v may vanish
+			}
+			want := kind == 0 || kind == 7 || kind == 8
+			if got, ref := inRange(a, kv, u, b, v, tiny, huge), inRangeGo(a, kv, u, b, v, tiny, huge); got != ref || got != want {
+				t.Errorf("n %d, kind %d: inRange %v, scalar %v, want %v", n, kind, got, ref, want)
+			}
+		}
+	}
+}
+
+// relaxLog (assembly where the CPU has AVX2) against the log-domain
+// update it replaces, written out: t = p - q, -Inf where p is -Inf (or q,
+// with both), over-relaxed against a finite old value; to a few ulp of the
+// terms (FMA rounds once).
+func TestRelaxLog(t *testing.T) {
+	rng := rand.New(rand.NewPCG(15, 16))
+	ninf := math.Inf(-1)
+	for _, n := range []int{0, 1, 3, 4, 5, 8, 13, 257} {
+		p, q, old := make([]float64, n), make([]float64, n), make([]float64, n)
+		for i := range p {
+			p[i], q[i], old[i] = 400*(rng.Float64()-0.5), 400*(rng.Float64()-0.5), 400*(rng.Float64()-0.5)
+			switch rng.IntN(8) {
+			case 0:
+				p[i] = ninf
+			case 1:
+				q[i] = ninf
+			case 2:
+				old[i] = ninf
+			}
+		}
+		for _, omega := range []float64{1, 1.5, 1.97} {
+			for _, both := range []bool{false, true} {
+				got := append([]float64(nil), old...)
+				relaxLog(got, p, q, omega, both)
+				for i := range got {
+					w := p[i] - q[i]
+					if p[i] == ninf || both && q[i] == ninf {
+						w = ninf
+					} else if omega != 1 && old[i] != ninf {
+						w = (1-omega)*old[i] + omega*w
+					}
+					scale := math.Abs(p[i]) + math.Abs(q[i]) + math.Abs(old[i])
+					if !(got[i] == w || math.Abs(got[i]-w) <= 8e-16*omega*scale) {
+						t.Fatalf("n %d, omega %g, both %v: at %d %.17g, want %.17g", n, omega, both, i, got[i], w)
+					}
+				}
+			}
+		}
+	}
+}

@@ -246,6 +246,11 @@ func (st *logIter) step(omega float64) float64 {
 	ninf := math.Inf(-1)
 	parallel.For(K, p.workers, func(k int) {
 		F, la, lkv := st.F[k], lv.la[k], st.LKv[k]
+		if lam == 1 && e == 1 {
+			relaxLog(F, la, lkv, omega, false)
+			st.conv(K+k, st.LKu[k], F, k)
+			return
+		}
 		for i := range F {
 			t := e*la[i] - lam*lkv[i]
 			if la[i] == ninf {
@@ -258,7 +263,30 @@ func (st *logIter) step(omega float64) float64 {
 		st.conv(K+k, st.LKu[k], F, k)
 	})
 	nc := (lv.n + chunk - 1) / chunk
+	sum := lv.lt == nil && st.ld == nil && lam == 1
 	parallel.For(nc, p.workers, func(c int) {
+		if sum {
+			// logMarginal's rule a line at a time: sum_k w_k log K u_k in
+			// the same order of k (so the same bits), -Inf outside the
+			// mask and where the sum is NaN.
+			lb := st.lb[c*chunk : min((c+1)*chunk, lv.n)]
+			clear(lb)
+			for k, w := range p.w {
+				if w != 0 {
+					lku := st.LKu[k][c*chunk:]
+					lku = lku[:len(lb)]
+					for i, x := range lku {
+						lb[i] += w * x
+					}
+				}
+			}
+			for i, x := range lb {
+				if x != x || lv.mask != nil && !lv.mask[c*chunk+i] {
+					lb[i] = ninf
+				}
+			}
+			return
+		}
 		l := st.l[c]
 		for i := c * chunk; i < min((c+1)*chunk, lv.n); i++ {
 			for k := range K {
@@ -281,6 +309,10 @@ func (st *logIter) step(omega float64) float64 {
 	}
 	parallel.For(K, p.workers, func(k int) {
 		G, lku := st.G[k], st.LKu[k]
+		if bw == nil && lam == 1 && e == 1 {
+			relaxLog(G, st.lb, lku, omega, true)
+			return
+		}
 		var d, ws float64
 		for i := range G {
 			t := e*st.lb[i] - lam*lku[i]

@@ -328,6 +328,9 @@ func (st *scalingIter) health(strict bool) string {
 		if lv.target != nil {
 			b = lv.target
 		}
+		if inRange(lv.a[k], kv, u, b, v, lo, hi) {
+			return
+		}
 		for i, a := range lv.a[k] {
 			if a > 0 && !(kv[i] > lo) {
 				st.bad[k] = fmt.Sprintf("K v underflows (%.3g) at row %d, column %d of input %d", kv[i], i/lv.cols, i%lv.cols, k+1)

@@ -2,6 +2,7 @@ package sinkhorn
 
 import (
 	"math"
+	"math/rand/v2"
 	"testing"
 
 	"barygrid/grid"
@@ -100,5 +101,42 @@ func TestPyramidSavesFinestIterations(t *testing.T) {
 	t.Logf("finest-level iterations: pyramid %d (%d levels), single scale %d", py.FinestIterations, py.Levels, single.FinestIterations)
 	if py.FinestIterations >= single.FinestIterations {
 		t.Errorf("pyramid %d finest iterations, single scale %d", py.FinestIterations, single.FinestIterations)
+	}
+}
+
+// The separable cubic upsampling equals interp's pixel-by-pixel definition
+// on finite arrays (odd sizes, clamped borders), and away from the borders
+// it reproduces a quadratic exactly (Catmull-Rom is the cubic convolution
+// with a = -1/2, which reproduces quadratics: Keys, IEEE Trans. ASSP 29(6),
+// 1981).
+func TestUpsampleSeparable(t *testing.T) {
+	rng := rand.New(rand.NewPCG(3, 4))
+	for _, sz := range [][2]int{{8, 8}, {9, 13}, {16, 11}} {
+		c := &level{rows: sz[0], cols: sz[1], n: sz[0] * sz[1]}
+		f := &level{rows: 2*sz[0] - 1, cols: 2 * sz[1], n: (2*sz[0] - 1) * 2 * sz[1]}
+		x, quad := make([]float64, c.n), make([]float64, c.n)
+		for i := range x {
+			x[i] = 100 * (rng.Float64() - 0.5)
+			r, q := float64(i/c.cols), float64(i%c.cols)
+			quad[i] = 0.3*r*r - 0.2*r*q + 0.7*q*q + 2*r - q + 5
+		}
+		got := upsampleSeparable(x, c, f)
+		gq := upsampleSeparable(quad, c, f)
+		for r := range f.rows {
+			y := math.Min(math.Max((float64(r)-0.5)/2, 0), float64(c.rows-1))
+			for q := range f.cols {
+				xx := math.Min(math.Max((float64(q)-0.5)/2, 0), float64(c.cols-1))
+				want := interp(x, c.rows, c.cols, y, xx)
+				if d := math.Abs(got[r*f.cols+q] - want); d > 1e-12*math.Max(1, math.Abs(want)) {
+					t.Fatalf("%v: pixel (%d,%d) %.17g, interp %.17g", sz, r, q, got[r*f.cols+q], want)
+				}
+				if y >= 1 && y <= float64(c.rows-2) && xx >= 1 && xx <= float64(c.cols-2) {
+					wq := 0.3*y*y - 0.2*y*xx + 0.7*xx*xx + 2*y - xx + 5
+					if d := math.Abs(gq[r*f.cols+q] - wq); d > 1e-11*math.Abs(wq) {
+						t.Fatalf("%v: quadratic at (%g,%g) %.17g, want %.17g", sz, y, xx, gq[r*f.cols+q], wq)
+					}
+				}
+			}
+		}
 	}
 }
