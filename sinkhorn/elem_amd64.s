@@ -117,6 +117,38 @@ expend:
 	RET
 
 // func logAddAVX(dst, out0 *float64, n int, shift float64, c, ltab, itab *float64) int
+// LOG4 sets Y6 to the log of the four positive normal numbers in Y0 by
+// fastLog's reduction: x = 2^e (1 + j/256) (1 + r), the table entries for
+// j read by gather (R10: logTab, R11: invTab, R9: elemConsts), log(1 + r)
+// from six terms of its series. It clobbers Y3-Y10.
+#define LOG4 \
+	VPSRLQ $44, Y0, Y3; \
+	VPAND 416(R9), Y3, Y3; \
+	VPCMPEQD Y8, Y8, Y8; \
+	VXORPD Y9, Y9, Y9; \
+	VGATHERQPD Y8, (R11)(Y3*8), Y9; \
+	VPCMPEQD Y8, Y8, Y8; \
+	VXORPD Y10, Y10, Y10; \
+	VGATHERQPD Y8, (R10)(Y3*8), Y10; \
+	VANDPD 448(R9), Y0, Y4; \
+	VORPD 480(R9), Y4, Y4; \
+	VANDPD 512(R9), Y4, Y5; \
+	VSUBPD Y5, Y4, Y4; \
+	VMULPD Y9, Y4, Y4; \
+	VMOVUPD 544(R9), Y6; \
+	VFNMADD213PD 576(R9), Y4, Y6; \
+	VFNMADD213PD 608(R9), Y4, Y6; \
+	VFNMADD213PD 640(R9), Y4, Y6; \
+	VFNMADD213PD 288(R9), Y4, Y6; \
+	VFNMADD213PD 320(R9), Y4, Y6; \
+	VMULPD Y4, Y6, Y6; \
+	VPSRLQ $52, Y0, Y7; \
+	VPOR 672(R9), Y7, Y7; \
+	VSUBPD 704(R9), Y7, Y7; \
+	VADDPD Y10, Y6, Y6; \
+	VFMADD231PD 736(R9), Y7, Y6; \
+	VFMADD231PD 768(R9), Y7, Y6
+
 // dst[i] = out0[i] + shift + log(dst[i]) by fastLog's reduction, for n a
 // multiple of 4. It stops before the first group of four with a sum that
 // is not a positive normal number (zero where every input was -Inf) and
@@ -140,32 +172,7 @@ logloop:
 	VMOVMSKPD Y1, BX
 	CMPQ BX, $15
 	JNE logend
-	VPSRLQ $44, Y0, Y3
-	VPAND 416(R9), Y3, Y3          // j = top 8 mantissa bits
-	VPCMPEQD Y8, Y8, Y8
-	VXORPD Y9, Y9, Y9
-	VGATHERQPD Y8, (R11)(Y3*8), Y9 // 1 / (1 + j/256)
-	VPCMPEQD Y8, Y8, Y8
-	VXORPD Y10, Y10, Y10
-	VGATHERQPD Y8, (R10)(Y3*8), Y10 // log(1 + j/256)
-	VANDPD 448(R9), Y0, Y4         // mantissa bits
-	VORPD 480(R9), Y4, Y4          // m in [1, 2)
-	VANDPD 512(R9), Y4, Y5         // 1 + j/256
-	VSUBPD Y5, Y4, Y4
-	VMULPD Y9, Y4, Y4              // r
-	VMOVUPD 544(R9), Y6            // 1/6
-	VFNMADD213PD 576(R9), Y4, Y6   // 1/5 - r q
-	VFNMADD213PD 608(R9), Y4, Y6   // 1/4
-	VFNMADD213PD 640(R9), Y4, Y6   // 1/3
-	VFNMADD213PD 288(R9), Y4, Y6   // 1/2
-	VFNMADD213PD 320(R9), Y4, Y6   // 1
-	VMULPD Y4, Y6, Y6              // l
-	VPSRLQ $52, Y0, Y7
-	VPOR 672(R9), Y7, Y7           // 2^52 + e as a double
-	VSUBPD 704(R9), Y7, Y7         // k = e - 1023
-	VADDPD Y10, Y6, Y6             // logTab + l
-	VFMADD231PD 736(R9), Y7, Y6    // + k ln2lo
-	VFMADD231PD 768(R9), Y7, Y6    // + k ln2hi
+	LOG4
 	VMOVUPD (SI), Y11
 	VADDPD Y14, Y11, Y11
 	VADDPD Y6, Y11, Y11
@@ -251,32 +258,7 @@ laloop:
 	VMOVMSKPD Y1, BX
 	CMPQ BX, $15
 	JNE laend
-	VPSRLQ $44, Y0, Y3
-	VPAND 416(R9), Y3, Y3          // j = top 8 mantissa bits
-	VPCMPEQD Y8, Y8, Y8
-	VXORPD Y9, Y9, Y9
-	VGATHERQPD Y8, (R11)(Y3*8), Y9 // 1 / (1 + j/256)
-	VPCMPEQD Y8, Y8, Y8
-	VXORPD Y10, Y10, Y10
-	VGATHERQPD Y8, (R10)(Y3*8), Y10 // log(1 + j/256)
-	VANDPD 448(R9), Y0, Y4         // mantissa bits
-	VORPD 480(R9), Y4, Y4          // m in [1, 2)
-	VANDPD 512(R9), Y4, Y5         // 1 + j/256
-	VSUBPD Y5, Y4, Y4
-	VMULPD Y9, Y4, Y4              // r
-	VMOVUPD 544(R9), Y6            // 1/6
-	VFNMADD213PD 576(R9), Y4, Y6   // 1/5 - r q
-	VFNMADD213PD 608(R9), Y4, Y6   // 1/4
-	VFNMADD213PD 640(R9), Y4, Y6   // 1/3
-	VFNMADD213PD 288(R9), Y4, Y6   // 1/2
-	VFNMADD213PD 320(R9), Y4, Y6   // 1
-	VMULPD Y4, Y6, Y6              // l
-	VPSRLQ $52, Y0, Y7
-	VPOR 672(R9), Y7, Y7           // 2^52 + e as a double
-	VSUBPD 704(R9), Y7, Y7         // k = e - 1023
-	VADDPD Y10, Y6, Y6             // logTab + l
-	VFMADD231PD 736(R9), Y7, Y6    // + k ln2lo
-	VFMADD231PD 768(R9), Y7, Y6    // + k ln2hi
+	LOG4
 	VMOVUPD (DI), Y11
 	VFMADD231PD Y14, Y6, Y11       // acc + w log x
 	VMOVUPD Y11, (DI)
