@@ -1,6 +1,10 @@
 package sinkhorn
 
-import "math"
+import (
+	"math"
+
+	"barygrid/internal/parallel"
+)
 
 // Absorption for the log-domain kernel (Schmitzer, SIAM J. Sci. Comput.
 // 41(3), 2019, stabilised scaling, applied here to each 1-D pass). A kernel
@@ -98,7 +102,14 @@ type absKernel struct {
 	k         *logKernel
 	drop, max float64   // absorbDrop and absorbMax, or the narrow pair
 	ref, out0 []float64 // reference input and its output, row-major
-	p1, p2    windows   // pass 1 along rows, pass 2 along columns (transposed)
+	// Windows of pass 1 (along rows) and pass 2 (along columns,
+	// transposed), one set per band of lines, so that a rebuild runs its
+	// bands in parallel: rebuilds come in one stream at a time, and a
+	// serial one left the other workers idle while it ran (a rebuild costs
+	// tens of applications).
+	p1, p2    []windows
+	scr       []*lseScratch // one per band
+	workers   int           // for the rebuild's bands (parallel.For's convention)
 	built     bool
 	builds    int
 	// fast takes the log by fastLog (2.1e-16 from math.Log). The slow mass
@@ -123,16 +134,26 @@ type absKernel struct {
 func newAbsKernel(k *logKernel, balanced, single bool) *absKernel {
 	n := k.rows * k.cols
 	a := &absKernel{k: k, ref: make([]float64, n), out0: make([]float64, n), fast: balanced}
+	a.p1, a.p2 = make([]windows, lineBands(k.rows)), make([]windows, lineBands(k.cols))
+	for range max(len(a.p1), len(a.p2)) {
+		a.scr = append(a.scr, newLSEScratch(k.rows, k.cols))
+	}
 	a.setSingle(single)
 	return a
 }
 
+// lineBands is the number of bands the lines of a pass are split into.
+// Each band's windows are its own; the windows do not depend on it.
+func lineBands(lines int) int { return max(1, min(8, lines/16)) }
+
+// band returns the first line of band b of nb over lines, and the next
+// band's.
+func band(b, nb, lines int) (int, int) { return b * lines / nb, (b + 1) * lines / nb }
+
 // setSingle sets the weights' precision; the next application rebuilds.
 func (a *absKernel) setSingle(single bool) {
 	k := a.k
-	n := k.rows * k.cols
 	a.single, a.built = single, false
-	a.p1.single, a.p2.single = single, single
 	a.drop, a.max = absorbDrop, absorbMax
 	if a.fast && !single {
 		a.drop, a.max = narrowDrop, narrowMax
@@ -140,18 +161,24 @@ func (a *absKernel) setSingle(single bool) {
 	// The windows' expected size up front: growing them by doubling left
 	// twice their size as garbage per instance and level (measured: 377 MB
 	// allocated in a 128^2 solve whose windows hold 63 MB).
-	window := func(c float64, line int) int { return n * min(line, int(2*math.Sqrt(a.drop/c))+1) }
-	if single {
-		a.p1.w, a.p2.w = nil, nil
-		a.p1.w32 = make([]float32, 0, window(k.cx, k.cols))
-		a.p2.w32 = make([]float32, 0, window(k.cy, k.rows))
-	} else {
-		a.p1.w32, a.p2.w32 = nil, nil
-		a.p1.w = make([]float64, 0, window(k.cx, k.cols))
-		a.p2.w = make([]float64, 0, window(k.cy, k.rows))
+	size := func(ws []windows, c float64, line, lines int) {
+		for b := range ws {
+			l0, l1 := band(b, len(ws), lines)
+			outs := (l1 - l0) * line
+			w := &ws[b]
+			w.single = single
+			m := outs * min(line, int(2*math.Sqrt(a.drop/c))+1)
+			w.w, w.w32 = nil, nil
+			if single {
+				w.w32 = make([]float32, 0, m)
+			} else {
+				w.w = make([]float64, 0, m)
+			}
+			w.lo, w.off = make([]int32, 0, outs), make([]int32, 0, outs+1)
+		}
 	}
-	a.p1.lo, a.p1.off = make([]int32, 0, n), make([]int32, 0, n+1)
-	a.p2.lo, a.p2.off = make([]int32, 0, n), make([]int32, 0, n+1)
+	size(a.p1, k.cx, k.cols, k.rows)
+	size(a.p2, k.cy, k.rows, k.cols)
 }
 
 // near reports whether src, less a constant c, is within absorbMax of the
@@ -179,19 +206,23 @@ func (a *absKernel) near(src []float64) (float64, bool) {
 
 // rebuild computes the output for src exactly into dst (which is scratch
 // until then; dst is not src) and keeps its windows; tmp2 is scratch.
-func (a *absKernel) rebuild(dst, src, tmp2 []float64, s *lseScratch) {
+func (a *absKernel) rebuild(dst, src, tmp2 []float64) {
 	tmp := dst
 	k := a.k
 	copy(a.ref, src)
-	a.p1.reset()
-	a.p2.reset()
-	for r := 0; r < k.rows; r++ {
-		lseLine(tmp[r*k.cols:(r+1)*k.cols], src[r*k.cols:(r+1)*k.cols], k.cx, a.drop, s, &a.p1)
+	pass := func(ws []windows, out, in []float64, lines, line int, c float64) {
+		parallel.For(len(ws), a.workers, func(b int) {
+			w := &ws[b]
+			w.reset()
+			l0, l1 := band(b, len(ws), lines)
+			for l := l0; l < l1; l++ {
+				lseLine(out[l*line:(l+1)*line], in[l*line:(l+1)*line], c, a.drop, a.scr[b], w)
+			}
+		})
 	}
+	pass(a.p1, tmp, src, k.rows, k.cols, k.cx)
 	transpose(tmp2, tmp, k.rows, k.cols)
-	for c := 0; c < k.cols; c++ {
-		lseLine(tmp[c*k.rows:(c+1)*k.rows], tmp2[c*k.rows:(c+1)*k.rows], k.cy, a.drop, s, &a.p2)
-	}
+	pass(a.p2, tmp, tmp2, k.cols, k.rows, k.cy)
 	transpose(a.out0, tmp, k.cols, k.rows)
 	copy(dst, a.out0) // dst held the first pass
 	a.built = true
@@ -199,13 +230,13 @@ func (a *absKernel) rebuild(dst, src, tmp2 []float64, s *lseScratch) {
 }
 
 // apply writes the log-domain kernel of src to dst (not src); x is a
-// scratch grid, s the 1-D passes' scratch. The exponentials live in dst
+// scratch grid. The exponentials live in dst
 // until the second pass overwrites them: the first pass reads them all
 // before.
-func (a *absKernel) apply(dst, src, x []float64, s *lseScratch) {
+func (a *absKernel) apply(dst, src, x []float64) {
 	shift, ok := a.near(src)
 	if !ok {
-		a.rebuild(dst, src, x, s)
+		a.rebuild(dst, src, x)
 		return
 	}
 	k := a.k
@@ -213,13 +244,19 @@ func (a *absKernel) apply(dst, src, x []float64, s *lseScratch) {
 	expShift(ee, src, a.ref, shift)
 	// Pass 1 along rows; its output goes transposed into s1, so that pass 2
 	// reads contiguous columns.
-	for r := 0; r < k.rows; r++ {
-		dotPass(s1all[r:], k.rows, &a.p1, r*k.cols, k.cols, ee[r*k.cols:(r+1)*k.cols])
+	for b := range a.p1 {
+		l0, l1 := band(b, len(a.p1), k.rows)
+		for r := l0; r < l1; r++ {
+			dotPass(s1all[r:], k.rows, &a.p1[b], (r-l0)*k.cols, k.cols, ee[r*k.cols:(r+1)*k.cols])
+		}
 	}
 	// Pass 2 along columns writes its sums in place into dst (the
 	// exponentials there were all read by pass 1), then the logs.
-	for c := 0; c < k.cols; c++ {
-		dotPass(dst[c:], k.cols, &a.p2, c*k.rows, k.rows, s1all[c*k.rows:(c+1)*k.rows])
+	for b := range a.p2 {
+		l0, l1 := band(b, len(a.p2), k.cols)
+		for c := l0; c < l1; c++ {
+			dotPass(dst[c:], k.cols, &a.p2[b], (c-l0)*k.rows, k.rows, s1all[c*k.rows:(c+1)*k.rows])
+		}
 	}
 	if a.fast {
 		logAdd(dst[:len(src)], a.out0, shift)

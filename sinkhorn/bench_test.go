@@ -60,11 +60,10 @@ func BenchmarkKernel(b *testing.B) {
 				}
 			}
 			dst, x := make([]float64, len(src)), make([]float64, len(src))
-			sc := newLSEScratch(128, 128)
-			a.apply(dst, src, x, sc)
+			a.apply(dst, src, x)
 			src[0] += 1
 			for b.Loop() {
-				a.apply(dst, src, x, sc)
+				a.apply(dst, src, x)
 			}
 		})
 	}

@@ -91,6 +91,7 @@ func newLogIter(p *problem, lv *level, eps float64, pot *potentials) *logIter {
 	single := balanced && !p.debias && p.tol >= singleTol
 	for i := range min(streams, int(absorbBudget(K, p.n)/absorbBytes(lv, eps, balanced, single))) {
 		st.abs[i] = newAbsKernel(st.k, balanced, single)
+		st.abs[i].workers = p.workers
 	}
 	st.single = single && st.abs[0] != nil
 	parallel.For(K, p.workers, func(k int) { st.conv(k, st.LKv[k], st.G[k], k) })
@@ -101,7 +102,7 @@ func newLogIter(p *problem, lv *level, eps float64, pot *potentials) *logIter {
 // dst is never src (the absorbed kernel uses dst as scratch).
 func (st *logIter) conv(i int, dst, src []float64, task int) {
 	if st.abs[i] != nil {
-		st.abs[i].apply(dst, src, st.tmp[task], st.scr[task])
+		st.abs[i].apply(dst, src, st.tmp[task])
 		return
 	}
 	st.k.apply(dst, src, st.tmp[task], st.scr[task])
