@@ -107,11 +107,11 @@ type absKernel struct {
 	// bands in parallel: rebuilds come in one stream at a time, and a
 	// serial one left the other workers idle while it ran (a rebuild costs
 	// tens of applications).
-	p1, p2    []windows
-	scr       []*lseScratch // one per band
-	workers   int           // for the rebuild's bands (parallel.For's convention)
-	built     bool
-	builds    int
+	p1, p2  []windows
+	scr     []*lseScratch // one per band
+	workers int           // for the rebuild's bands (parallel.For's convention)
+	built   bool
+	builds  int
 	// fast takes the log by fastLog (2.1e-16 from math.Log). The slow mass
 	// mode of an unbalanced barycenter at a large penalty amplifies such
 	// errors by 1 / (1 - lambda^2) (measured: stalled at 5.6e-8 instead
