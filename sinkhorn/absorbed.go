@@ -2,6 +2,7 @@ package sinkhorn
 
 import (
 	"math"
+	"slices"
 
 	"barygrid/internal/parallel"
 )
@@ -53,41 +54,36 @@ type windows struct {
 	w       []float64
 	single  bool
 	w32     []float32
-	scr     []float64 // one window, before rounding
 }
 
 func (r *windows) reset() {
 	r.lo, r.off, r.w, r.w32 = r.lo[:0], append(r.off[:0], 0), r.w[:0], r.w32[:0]
 }
 
-// grow returns n weights of the next window to be filled.
-func (r *windows) grow(n int) []float64 {
-	if r.single {
-		if cap(r.scr) < n {
-			r.scr = make([]float64, n)
-		}
-		return r.scr[:n]
-	}
-	if len(r.w)+n <= cap(r.w) {
-		r.w = r.w[:len(r.w)+n] // lseLine writes every weight
-	} else {
-		r.w = append(r.w, make([]float64, n)...)
-	}
-	return r.w[len(r.w)-n:]
-}
-
-// add closes one output's window, whose weights grow returned as w.
-func (r *windows) add(lo int, w []float64) {
+// addScaled closes the next output's window: weights x[j] * inv for
+// inputs lo, lo+1, ... (rounded to single precision with single set).
+func (r *windows) addScaled(lo int, x []float64, inv float64) {
 	if r == nil {
 		return
 	}
 	r.lo = append(r.lo, int32(lo))
 	if r.single {
-		for _, x := range w {
-			r.w32 = append(r.w32, float32(x))
+		// One growth and a plain loop: an append per weight was 4% of a
+		// 256^2 solve.
+		n0 := len(r.w32)
+		r.w32 = slices.Grow(r.w32, len(x))[:n0+len(x)]
+		w := r.w32[n0:]
+		for j, v := range x {
+			w[j] = float32(v * inv)
 		}
 		r.off = append(r.off, int32(len(r.w32)))
 		return
+	}
+	n0 := len(r.w)
+	r.w = slices.Grow(r.w, len(x))[:n0+len(x)]
+	w := r.w[n0:]
+	for j, v := range x {
+		w[j] = v * inv
 	}
 	r.off = append(r.off, int32(len(r.w)))
 }

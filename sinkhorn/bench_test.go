@@ -171,11 +171,11 @@ func BenchmarkDotPass(b *testing.B) {
 		r.reset()
 		for line := 0; line < n; line++ {
 			for o := 0; o < n; o++ {
-				w := r.grow(l)
+				w := make([]float64, l)
 				for j := range w {
 					w[j] = rng.Float64()
 				}
-				r.add(min(max(o-l/2, 0), n-l), w)
+				r.addScaled(min(max(o-l/2, 0), n-l), w, 1)
 			}
 		}
 		x, out := make([]float64, n*n), make([]float64, n*n)

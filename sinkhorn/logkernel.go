@@ -100,7 +100,7 @@ func lseLine(out, h []float64, c, drop float64, s *lseScratch, rec *windows) {
 		for i := range out {
 			out[i] = ninf
 			if rec != nil {
-				rec.add(0, nil)
+				rec.addScaled(0, nil, 1)
 			}
 		}
 		return
@@ -159,7 +159,11 @@ func lseLine(out, h []float64, c, drop float64, s *lseScratch, rec *windows) {
 			}
 		}
 		win := ex[lo : hi+1]
-		expShift(win, win, s.zero[:len(win)], 0)
+		// The exps run on whole groups of four where the line allows: the
+		// entries past the window are scratch, and a scalar tail of one to
+		// three expNeg calls per output was 2% of a solve.
+		pad := ex[lo:min(lo+(len(win)+3)&^3, n)]
+		expShift(pad, pad, s.zero[:len(pad)], 0)
 		sum := 0.0
 		for _, x := range win {
 			sum += x
@@ -174,12 +178,7 @@ func lseLine(out, h []float64, c, drop float64, s *lseScratch, rec *windows) {
 			out[i] = best + math.Log(sum)
 		}
 		if rec != nil {
-			w := rec.grow(len(win))
-			inv := 1 / sum
-			for j, x := range win {
-				w[j] = x * inv
-			}
-			rec.add(lo, w)
+			rec.addScaled(lo, win, 1/sum)
 		}
 	}
 }

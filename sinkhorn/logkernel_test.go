@@ -248,11 +248,11 @@ func TestDotPass(t *testing.T) {
 	n := 0
 	for l := 0; l <= 20; l++ {
 		for rep := 0; rep < 3; rep++ {
-			w := r.grow(l)
+			w := make([]float64, l)
 			for j := range w {
 				w[j] = rng.Float64()
 			}
-			r.add(rng.IntN(len(x)-l+1), w)
+			r.addScaled(rng.IntN(len(x)-l+1), w, 1)
 			n++
 		}
 	}
@@ -271,9 +271,7 @@ func TestDotPass(t *testing.T) {
 	r32.single = true
 	r32.reset()
 	for q := 0; q < n; q++ {
-		w := r32.grow(int(r.off[q+1] - r.off[q]))
-		copy(w, r.w[r.off[q]:r.off[q+1]])
-		r32.add(int(r.lo[q]), w)
+		r32.addScaled(int(r.lo[q]), r.w[r.off[q]:r.off[q+1]], 1)
 	}
 	got32, want32 := make([]float64, n*stride), make([]float64, n*stride)
 	dotPass(got32, stride, &r32, 0, n, x)
@@ -287,7 +285,7 @@ func TestDotPass(t *testing.T) {
 	var none windows
 	none.reset()
 	for range 4 {
-		none.add(0, nil)
+		none.addScaled(0, nil, 1)
 	}
 	zero := []float64{7, 7, 7, 7}
 	dotPass(zero, 1, &none, 0, 4, x)
