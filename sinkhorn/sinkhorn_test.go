@@ -334,25 +334,34 @@ func TestSmallEpsilonAuto(t *testing.T) {
 	}
 }
 
-// Results do not depend on the number of worker goroutines.
+// Results do not depend on the number of worker goroutines: on a small
+// grid, and in the log domain at epsilon 1, with absorbed kernels rebuilt
+// in parallel bands of lines.
 func TestThreadsBitIdentical(t *testing.T) {
-	var fs []*grid.Field
-	for i := 0; i < 5; i++ {
-		fs = append(fs, gaussField(20, 26, 6+2*float64(i), 8+float64(i), 3+float64(i)))
-	}
-	var ref []float64
-	for _, w := range []int{1, 2, 5} {
-		r, err := Barycenter(fs, Settings{Epsilon: 4, Workers: w, MaxIter: 300})
-		if err != nil {
-			t.Fatal(err)
+	for _, c := range []struct {
+		rows, cols int
+		eps        float64
+		method     Method
+	}{{20, 26, 4, MethodAuto}, {48, 40, 1, MethodLog}} {
+		var fs []*grid.Field
+		for i := 0; i < 5; i++ {
+			s := float64(c.rows) / 20
+			fs = append(fs, gaussField(c.rows, c.cols, s*(6+2*float64(i)), s*(8+float64(i)), s*s*(3+float64(i))))
 		}
-		if ref == nil {
-			ref = r.Barycenter.Data
-			continue
-		}
-		for i := range ref {
-			if ref[i] != r.Barycenter.Data[i] {
-				t.Fatalf("workers=%d: pixel %d differs (%v vs %v)", w, i, r.Barycenter.Data[i], ref[i])
+		var ref []float64
+		for _, w := range []int{1, 2, 5} {
+			r, err := Barycenter(fs, Settings{Epsilon: c.eps, Workers: w, MaxIter: 300, Method: c.method})
+			if err != nil {
+				t.Fatal(err)
+			}
+			if ref == nil {
+				ref = r.Barycenter.Data
+				continue
+			}
+			for i := range ref {
+				if ref[i] != r.Barycenter.Data[i] {
+					t.Fatalf("%dx%d, workers=%d: pixel %d differs (%v vs %v)", c.rows, c.cols, w, i, r.Barycenter.Data[i], ref[i])
+				}
 			}
 		}
 	}
