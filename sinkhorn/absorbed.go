@@ -34,14 +34,20 @@ import (
 // bytes: a wider range between rebuilds, and a rebuild costs tens of
 // applications (measured: rebuilds 12 -> 8 per stream over 159 full-grid
 // iterations at 512^2, CPU 96 -> 77 s; at 128^2, 11.2-11.8 -> 10.0-10.8 s).
-// Unbalanced problems keep 50 and 7 too: their slow mass mode amplifies
-// the larger typical truncation error (with the narrow pair, penalty 2e6 at
-// tol 1e-8 stalled at 1.9e-8).
+// Unbalanced problems keep 50 and 7: their slow mass mode amplifies the
+// larger typical truncation error (with the narrow pair, penalty 2e6 at
+// tol 1e-8 stalled at 1.9e-8). Once rebuilds ran in parallel bands, a
+// still wider pair for single-precision windows, 72 and 12.5 (same
+// exp(-22)), paid again: 20% more weights, rebuilds rarer (8 x 256^2: CPU
+// 16.1 -> 14.3 s, wall 9.1 -> 8.2 s; 128^2 1.19 -> 1.15 s; 512^2 79.9 ->
+// 75.1 s, peak 820 -> 899 MB; alternating processes).
 const (
 	absorbDrop = 50.0
 	absorbMax  = 7.0
 	narrowDrop = 40.0
 	narrowMax  = 4.5
+	singleDrop = 72.0
+	singleMax  = 12.5
 )
 
 // windows holds the weights of every output of a pass: output o's weights
@@ -151,7 +157,10 @@ func (a *absKernel) setSingle(single bool) {
 	k := a.k
 	a.single, a.built = single, false
 	a.drop, a.max = absorbDrop, absorbMax
-	if a.fast && !single {
+	switch {
+	case single:
+		a.drop, a.max = singleDrop, singleMax
+	case a.fast:
 		a.drop, a.max = narrowDrop, narrowMax
 	}
 	// The windows' expected size up front: growing them by doubling left

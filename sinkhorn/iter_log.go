@@ -145,7 +145,7 @@ func absorbBytes(lv *level, eps float64, balanced, single bool) float64 {
 		drop = narrowDrop
 	}
 	if single {
-		size = 4
+		drop, size = singleDrop, 4
 	}
 	w := func(h float64) float64 { return 2*math.Sqrt(drop*eps)/h + 1 }
 	return float64(lv.n) * (size*(w(lv.dx)+w(lv.dy)) + 16 + 2*8)

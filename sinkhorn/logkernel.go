@@ -192,7 +192,7 @@ var expTab = func() (t [64]float64) {
 }()
 
 // expNeg returns exp(x) for x in [-700, 700] (a few ulp, checked against
-// math.Exp in TestExpNeg; the kernels call it on [-absorbDrop, absorbMax]): x = (n/64) ln 2 + r with |r| <= ln2/128, then
+// math.Exp in TestExpNeg; the kernels call it on [-singleDrop, singleMax]): x = (n/64) ln 2 + r with |r| <= ln2/128, then
 // 2^(n/64) from a table and exp(r) from its Taylor polynomial of degree 6
 // (remainder below 1e-18). It is several times cheaper than math.Exp, which
 // handles the whole range.

@@ -119,7 +119,7 @@ func TestLogKernelDense(t *testing.T) {
 func TestExpNeg(t *testing.T) {
 	worst := 0.0
 	for i := 0; i <= 1000000; i++ {
-		x := -absorbDrop + (absorbDrop+absorbMax)*float64(i)/1000000
+		x := -singleDrop + (singleDrop+singleMax)*float64(i)/1000000
 		e := math.Abs(expNeg(x)/math.Exp(x) - 1)
 		worst = math.Max(worst, e)
 	}
