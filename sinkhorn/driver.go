@@ -800,6 +800,18 @@ func (p *problem) logMarginal(lv *level, i int, l []float64, ld, lambda float64)
 	return s
 }
 
+// maskLogB applies the rest of logMarginal's rule to a chunk of log b
+// that an iteration summed itself (plain balanced problems, sum_k w_k
+// log K u_k a line at a time): -Inf outside the mask and where the sum is
+// NaN. i0 is the chunk's first pixel.
+func maskLogB(lb []float64, lv *level, i0 int) {
+	for i, x := range lb {
+		if x != x || lv.mask != nil && !lv.mask[i0+i] {
+			lb[i] = math.Inf(-1)
+		}
+	}
+}
+
 // powerMeanLog returns log((sum_k w_k exp(q l_k))^(1/q)), the log of the
 // weighted power mean of order q of exp(l_k) (weights sum to one), written
 // with log1p and expm1 around the largest term so that it stays accurate as

@@ -82,19 +82,28 @@ func expSum(m, a, b []float64) {
 
 // logAdd writes dst[i] = out0[i] + shift + fastLog(dst[i]).
 func logAdd(dst, out0 []float64, shift float64) {
+	_ = out0[:len(dst)]
+	byGroups(len(dst), func(i, n int) int {
+		return logAddAVX(&dst[i], &out0[i], n, shift, &elemConsts[0], &logTab[0], &invTab[0])
+	}, func(i, j int) { logAddGo(dst[i:j], out0[i:j], shift) })
+}
+
+// byGroups runs a vector pass that stops before a group of four it cannot
+// take (vec(i, n) over n entries from i returns how many it wrote): that
+// group, and the last len mod 4 entries, go to scalar(i, j) over [i, j).
+func byGroups(length int, vec func(i, n int) int, scalar func(i, j int)) {
 	i := 0
-	if useAVX && len(dst) >= 4 {
-		n4 := len(dst) &^ 3
-		_ = out0[len(dst)-1]
+	if useAVX && length >= 4 {
+		n4 := length &^ 3
 		for i < n4 {
-			i += logAddAVX(&dst[i], &out0[i], n4-i, shift, &elemConsts[0], &logTab[0], &invTab[0])
-			if i < n4 { // a group with a zero (or non-normal) sum
-				logAddGo(dst[i:i+4], out0[i:i+4], shift)
+			i += vec(i, n4-i)
+			if i < n4 {
+				scalar(i, i+4)
 				i += 4
 			}
 		}
 	}
-	logAddGo(dst[i:], out0[i:len(dst)], shift)
+	scalar(i, length)
 }
 
 //go:noescape
@@ -123,19 +132,10 @@ func relaxDiv(dst, num, den, test []float64, omega float64) {
 // logAxpy adds w log(x[i]) to acc[i] (fastLog; math.Log where x is zero,
 // subnormal or not finite).
 func logAxpy(acc, x []float64, w float64) {
-	i := 0
-	if useAVX && len(acc) >= 4 {
-		n4 := len(acc) &^ 3
-		_ = x[len(acc)-1]
-		for i < n4 {
-			i += logAxpyAVX(&acc[i], &x[i], n4-i, w, &elemConsts[0], &logTab[0], &invTab[0])
-			if i < n4 { // a group with an x that is not a positive normal
-				logAxpyGo(acc[i:i+4], x[i:i+4], w)
-				i += 4
-			}
-		}
-	}
-	logAxpyGo(acc[i:], x[i:len(acc)], w)
+	_ = x[:len(acc)]
+	byGroups(len(acc), func(i, n int) int {
+		return logAxpyAVX(&acc[i], &x[i], n, w, &elemConsts[0], &logTab[0], &invTab[0])
+	}, func(i, j int) { logAxpyGo(acc[i:j], x[i:j], w) })
 }
 
 //go:noescape

@@ -267,9 +267,8 @@ func (st *logIter) step(omega float64) float64 {
 	sum := lv.lt == nil && st.ld == nil && lam == 1
 	parallel.For(nc, p.workers, func(c int) {
 		if sum {
-			// logMarginal's rule a line at a time: sum_k w_k log K u_k in
-			// the same order of k (so the same bits), -Inf outside the
-			// mask and where the sum is NaN.
+			// logMarginal's rule a chunk at a time: sum_k w_k log K u_k
+			// in the same order of k (so the same bits), then maskLogB.
 			lb := st.lb[c*chunk : min((c+1)*chunk, lv.n)]
 			clear(lb)
 			for k, w := range p.w {
@@ -281,11 +280,7 @@ func (st *logIter) step(omega float64) float64 {
 					}
 				}
 			}
-			for i, x := range lb {
-				if x != x || lv.mask != nil && !lv.mask[c*chunk+i] {
-					lb[i] = ninf
-				}
-			}
+			maskLogB(lb, lv, c*chunk)
 			return
 		}
 		l := st.l[c]

@@ -184,8 +184,7 @@ func (st *scalingIter) step(omega float64) float64 {
 		if geometric {
 			// b = prod_k (K u_k)^w_k, the logs and the exp four lanes at a
 			// time (one math.Log per input and pixel was a fifth of a solve
-			// at epsilon 16); logMarginal's rule: b = 0 outside the mask and
-			// where the sum is NaN.
+			// at epsilon 16); logMarginal's rule by maskLogB.
 			i0, i1 := c*chunk, min((c+1)*chunk, lv.n)
 			acc := st.lbuf[i0:i1]
 			clear(acc)
@@ -194,11 +193,7 @@ func (st *scalingIter) step(omega float64) float64 {
 					logAxpy(acc, st.ku[k][i0:i1], w)
 				}
 			}
-			for i, x := range acc {
-				if x != x || (lv.mask != nil && !lv.mask[i0+i]) {
-					acc[i] = math.Inf(-1)
-				}
-			}
+			maskLogB(acc, lv, i0)
 			expSum(st.b[i0:i1], acc, st.zero[:i1-i0])
 			return
 		}

@@ -36,9 +36,13 @@ func newBandKernel(rows, cols int, dx, dy, eps, cutoff float64) *bandKernel {
 	k := &bandKernel{Rows: rows, Cols: cols, Dx: dx, Dy: dy, Epsilon: eps, Cutoff: cutoff}
 	k.kx, k.rx = taps(cols, dx, eps, cutoff)
 	k.ky, k.ry = taps(rows, dy, eps, cutoff)
-	pad := func(t []float64) []float64 { return append(append(make([]float64, 3, len(t)+6), t...), 0, 0, 0) }
-	k.px, k.py = pad(k.kx), pad(k.ky)
+	k.px, k.py = padTaps(k.kx), padTaps(k.ky)
 	return k
+}
+
+// padTaps returns taps with 3 zeros on either side (bandPass's padded).
+func padTaps(t []float64) []float64 {
+	return append(append(make([]float64, 3, len(t)+6), t...), 0, 0, 0)
 }
 
 // taps returns exp(-(h t)^2/eps) for t in [-r, r], r the largest offset whose

@@ -159,10 +159,14 @@ func lseLine(out, h []float64, c, drop float64, s *lseScratch, rec *windows) {
 			}
 		}
 		win := ex[lo : hi+1]
-		// The exps run on whole groups of four where the line allows: the
-		// entries past the window are scratch, and a scalar tail of one to
-		// three expNeg calls per output was 2% of a solve.
+		// The exps run on whole groups of four where the line allows (a
+		// scalar tail of one to three expNeg calls per output was 2% of a
+		// solve); the entries past the window are scratch, set to -Inf so
+		// that no stale value is taken to exp again and again.
 		pad := ex[lo:min(lo+(len(win)+3)&^3, n)]
+		for j := len(win); j < len(pad); j++ {
+			pad[j] = ninf
+		}
 		expShift(pad, pad, s.zero[:len(pad)], 0)
 		sum := 0.0
 		for _, x := range win {
