@@ -3,6 +3,13 @@
 // func dotPassAVX(out *float64, stride int, w *float64, off, lo *int32, x *float64, n int, m64 *int64)
 // For o in [0, n): out[o*stride] = sum_j w[off[o]+j] * x[lo[o]+j], j < off[o+1]-off[o];
 // m64 points to tailMask64.
+//
+// Each output prefetches the weights 4 KiB ahead: the windows of a
+// solve's 16 streams do not fit the caches, and the hardware's own
+// prefetch left the sums waiting on memory (measured, 8 x 256^2 at epsilon
+// 1, single-precision windows, alternating processes: 6.6-7.8 -> 6.3-6.5 s,
+// CPU -7%; 16 sets of 256^2 windows: 5.7-6.2 -> 3.5-4.6 ns per output, with
+// 1, 2, 8 and 16 KiB ahead in between).
 TEXT ·dotPassAVX(SB), NOSPLIT, $0-64
 	MOVQ m64+56(FP), R15
 	MOVQ out+0(FP), DI
@@ -20,6 +27,7 @@ loopo:
 	MOVLQSX 4(R9), BX
 	SUBQ AX, BX
 	LEAQ (SI)(AX*8), R12
+	PREFETCHT0 4096(R12)
 	MOVLQSX (R10), DX
 	LEAQ (R11)(DX*8), R13
 	VXORPD Y0, Y0, Y0
@@ -89,6 +97,7 @@ loop32o:
 	MOVLQSX 4(R9), BX
 	SUBQ AX, BX
 	LEAQ (SI)(AX*4), R12
+	PREFETCHT0 4096(R12)
 	MOVLQSX (R10), DX
 	LEAQ (R11)(DX*8), R13
 	VXORPD Y0, Y0, Y0
