@@ -36,6 +36,7 @@ func newLogKernel(rows, cols int, dx, dy, eps float64) *logKernel {
 type lseScratch struct {
 	v               []int
 	z, pre, suf, ex []float64 // ex: the terms of the current output, by j
+	env             []float64 // the envelope's values (see lseLine)
 	jstar           []int
 	zero            []float64 // zeros, the reference of lseLine's exps
 }
@@ -43,7 +44,7 @@ type lseScratch struct {
 func newLSEScratch(rows, cols int) *lseScratch {
 	n := max(rows, cols)
 	return &lseScratch{v: make([]int, n), z: make([]float64, n+1), pre: make([]float64, n), suf: make([]float64, n),
-		ex: make([]float64, n), jstar: make([]int, n), zero: make([]float64, n)}
+		ex: make([]float64, n), env: make([]float64, n), jstar: make([]int, n), zero: make([]float64, n)}
 }
 
 // apply writes the log-domain kernel of src to dst; tmp has their size.
@@ -117,6 +118,16 @@ func lseLine(out, h []float64, c, drop float64, s *lseScratch, rec *windows) {
 		mx = math.Max(mx, h[j])
 		suf[j] = mx
 	}
+	// The envelope's values E(x) = max_j h_j - c (x - j)^2, the largest
+	// term of each output, bound the others too (see the scans).
+	env := s.env[:n]
+	for i, e := 0, 0; i < n; i++ {
+		for e < m && z[e+1] < float64(i) {
+			e++
+		}
+		d := float64(i) - float64(v[e])
+		env[i] = h[v[e]] - c*d*d
+	}
 	e := 0
 	for i := 0; i < n; i++ {
 		for e < m && z[e+1] < float64(i) {
@@ -133,11 +144,23 @@ func lseLine(out, h []float64, c, drop float64, s *lseScratch, rec *windows) {
 		ex[js] = 0
 		lo, hi := js, js
 		// Right of j*: once past i the distance only grows, so suf bounds
-		// everything further out.
+		// everything further out. So does the envelope, much closer: for
+		// any x >= i and j' >= j, h_j' <= E(x) + c (j' - x)^2 gives
+		//
+		//	h_j' - c (j' - i)^2 <= E(x) - c (x - i) (2 j - x - i),
+		//
+		// tightest near x = i + j - j* (exactly the window's end for a
+		// quadratic h); to the left the same with x <= i and j' <= j.
+		// With the maxima alone the scans ran on four times the window (62
+		// terms per output for windows of 15.5, 8 x 256^2 at epsilon 1;
+		// with E(j) 39, with x = i + j - j* 24). The windows are the same.
 		for j := js + 1; j < n; j++ {
 			d := float64(j) - fi
 			cd := c * d * d
 			if j >= i && suf[j]-cd-best < -drop {
+				break
+			}
+			if x := min(i+j-js, n-1); env[x]-c*float64(x-i)*float64(2*j-x-i)-best < -drop {
 				break
 			}
 			ex[j] = ninf
@@ -150,6 +173,9 @@ func lseLine(out, h []float64, c, drop float64, s *lseScratch, rec *windows) {
 			d := fi - float64(j)
 			cd := c * d * d
 			if j <= i && pre[j]-cd-best < -drop {
+				break
+			}
+			if x := max(i+j-js, 0); env[x]-c*float64(x-i)*float64(2*j-x-i)-best < -drop {
 				break
 			}
 			ex[j] = ninf
