@@ -84,6 +84,71 @@ func TestLogKernelTruncation(t *testing.T) {
 	t.Logf("largest error in the log of an output: %.3g", worst)
 }
 
+// The windows lseLine records are exactly the span of the terms within
+// drop of each output's largest, found by brute force over the whole line:
+// the scans stop on bounds (prefix and suffix maxima, the envelope), and a
+// bound that cut a window short would drop a term that belongs to it.
+// Potentials as in TestLogKernelTruncation, steeper ones included, at the
+// single-precision windows' drop.
+func TestWindowsExact(t *testing.T) {
+	rng := rand.New(rand.NewPCG(7, 8))
+	s := newLSEScratch(300, 300)
+	for trial := 0; trial < 200; trial++ {
+		n := 1 + rng.IntN(300)
+		c := math.Pow(10, -2+3*rng.Float64())
+		h := make([]float64, n)
+		x0, slope := float64(n)*rng.Float64(), 40*(2*rng.Float64()-1)
+		for j := range h {
+			x := float64(j)
+			switch trial % 4 {
+			case 0:
+				h[j] = 1000 * (2*rng.Float64() - 1)
+			case 1: // a potential whose map moves mass tens of pixels
+				h[j] = c * (-0.5*(x-x0)*(x-x0) + slope*x)
+			case 2:
+				h[j] = 50 * rng.Float64()
+				if rng.Float64() < 0.4 {
+					h[j] = math.Inf(-1)
+				}
+			case 3:
+				h[j] = c * (-0.3*(x-x0)*(x-x0) + slope*x + 30*math.Sin(x/7))
+			}
+		}
+		var rec windows
+		rec.single = true
+		rec.reset()
+		out := make([]float64, n)
+		lseLine(out, h, c, singleDrop, s, &rec)
+		for i := range n {
+			best := math.Inf(-1)
+			for j, v := range h {
+				d := float64(i - j)
+				best = math.Max(best, v-c*d*d)
+			}
+			lo, hi := -1, -2
+			for j, v := range h {
+				d := float64(i - j)
+				if v-c*d*d-best > -singleDrop {
+					if lo < 0 {
+						lo = j
+					}
+					hi = j
+				}
+			}
+			glo, glen := int(rec.lo[i]), int(rec.off[i+1]-rec.off[i])
+			if math.IsInf(best, -1) {
+				if glen != 0 {
+					t.Fatalf("trial %d: output %d has no finite term but a window of %d", trial, i, glen)
+				}
+				continue
+			}
+			if glo != lo || glo+glen-1 != hi {
+				t.Fatalf("trial %d (n %d, c %g): output %d window [%d, %d], want [%d, %d]", trial, n, c, i, glo, glo+glen-1, lo, hi)
+			}
+		}
+	}
+}
+
 // The 2-D kernel is the dense Gibbs kernel (definition), anisotropic pixels
 // included.
 func TestLogKernelDense(t *testing.T) {
