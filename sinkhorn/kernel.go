@@ -74,7 +74,7 @@ func (k *bandKernel) Apply(dst, src, tmp []float64) {
 	// each row against itself shifted (measured: 100 iterations on
 	// 8 x 128^2 took 1.0-1.4 s this way, 1.7-2.2 s shifted).
 	bandPass(tmp, src, k.Rows, k.Cols, k.ky, k.py, k.ry)
-	if useAVX && k.Cols >= 32 {
+	if useAVX && k.Cols >= 32 && k.rx <= conv1dReach {
 		// Along x without transposes: each row, padded with zeros, is
 		// correlated with the taps 32 outputs at a time (conv1d).
 		buf := padPool.Get().(*[]float64)
@@ -101,6 +101,15 @@ func (k *bandKernel) Apply(dst, src, tmp []float64) {
 	bandPass(tmp, dst, k.Cols, k.Rows, k.kx, k.px, k.rx)
 	transpose(dst, tmp, k.Cols, k.Rows)
 }
+
+// conv1dReach is the widest band (taps on either side) that the x pass
+// takes by conv1d; wider ones transpose and take bandPass, whose input
+// loads are aligned and serve four outputs each (conv1d's unaligned loads
+// cross cache lines 3 times in 8). Measured at 128^2 (BenchmarkKernel/
+// scaling, same run): 27 taps (epsilon 1) 50 us by conv1d, 71-72 us with
+// transposes; 55 (epsilon 4) 95-97 against 106-107; 109 (epsilon 16)
+// 175-177 against 158-161.
+const conv1dReach = 40
 
 // bandPass is axpyPass with four output rows and eight columns at a time
 // held in registers (band4), where the CPU has AVX2 and FMA: each input row

@@ -28,13 +28,19 @@ func gaussField(rows, cols int, mx, my, s2 float64) *grid.Field {
 // definition K(p, q) = exp(-|p - q|^2/eps), anisotropic pixels included.
 func TestSeparableEqualsDense(t *testing.T) {
 	// 5 x 7 takes the portable passes; 9 x 45 the blocked ones with their
-	// row and column tails (bandPass, conv1d).
-	for _, sz := range [][2]int{{5, 7}, {9, 45}} {
-		separableEqualsDense(t, sz[0], sz[1])
+	// row and column tails: bandPass along y, and along x conv1d with a
+	// band of 30 taps on either side (cutoff 1e-80: the terms it leaves
+	// out are below 1e-80 of the largest), transposes and bandPass with
+	// the full band of 44 (beyond conv1dReach).
+	for _, c := range []struct {
+		rows, cols int
+		cutoff     float64
+	}{{5, 7, 0}, {9, 45, 0}, {9, 45, 1e-80}} {
+		separableEqualsDense(t, c.rows, c.cols, c.cutoff)
 	}
 }
 
-func separableEqualsDense(t *testing.T, rows, cols int) {
+func separableEqualsDense(t *testing.T, rows, cols int, cutoff float64) {
 	dx, dy, eps := 0.7, 1.3, 2.5
 	f := grid.New(rows, cols)
 	for i := range f.Data {
@@ -49,7 +55,11 @@ func separableEqualsDense(t *testing.T, rows, cols int) {
 		}
 	}
 	got, tmp := make([]float64, rows*cols), make([]float64, rows*cols)
-	newBandKernel(rows, cols, dx, dy, eps, 0).Apply(got, f.Data, tmp)
+	k := newBandKernel(rows, cols, dx, dy, eps, cutoff)
+	if cols == 45 && (k.rx <= conv1dReach) != (cutoff > 0) {
+		t.Fatalf("cutoff %g: band of %d taps on either side, not the pass meant", cutoff, k.rx)
+	}
+	k.Apply(got, f.Data, tmp)
 	logf := make([]float64, rows*cols)
 	for i, v := range f.Data {
 		logf[i] = math.Log(v)
