@@ -88,3 +88,23 @@ func conv1d(out, in, w []float64) int {
 	conv1dAVX(&out[0], &in[0], n, &w[0], len(w))
 	return n
 }
+
+//go:noescape
+func transpose4AVX(dst, src *float64, rows, cols, n int)
+
+// transpose writes the cols x rows transpose of src (rows x cols, row-major)
+// to dst: four rows at a time by 4 x 4 tiles in registers (transpose4AVX)
+// where the CPU has AVX2, the rest by transposeGo.
+func transpose(dst, src []float64, rows, cols int) {
+	n := cols &^ 3
+	r4 := rows &^ 3
+	if !useAVX || n == 0 || r4 == 0 {
+		transposeGo(dst, src, rows, cols, 0, 0)
+		return
+	}
+	_, _ = dst[rows*cols-1], src[rows*cols-1]
+	for r := 0; r < r4; r += 4 {
+		transpose4AVX(&dst[r], &src[r*cols], rows, cols, n)
+	}
+	transposeGo(dst, src, rows, cols, r4, n)
+}

@@ -198,3 +198,47 @@ ctap:
 	JG cblk
 	VZEROUPPER
 	RET
+
+// func transpose4AVX(dst, src *float64, rows, cols, n int)
+// Transposes a strip of four rows of src (rows x cols, row-major) into
+// four columns of dst (cols x rows): dst[c*rows + i] = src[i*cols + c] for
+// i < 4 and c < n, a positive multiple of 4; each 4 x 4 tile by two
+// unpacks and two lane permutes.
+TEXT ·transpose4AVX(SB), NOSPLIT, $0-40
+	MOVQ dst+0(FP), DI
+	MOVQ src+8(FP), SI
+	MOVQ rows+16(FP), R8
+	SHLQ $3, R8
+	MOVQ cols+24(FP), R9
+	SHLQ $3, R9
+	MOVQ n+32(FP), CX
+	LEAQ (SI)(R9*1), R10 // row 1
+	LEAQ (R10)(R9*1), R11 // row 2
+	LEAQ (R11)(R9*1), R12 // row 3
+	LEAQ (R8)(R8*2), R13  // 3 rows of dst
+tloop:
+	VMOVUPD (SI), Y0
+	VMOVUPD (R10), Y1
+	VMOVUPD (R11), Y2
+	VMOVUPD (R12), Y3
+	VUNPCKLPD Y1, Y0, Y4 // a0 b0 a2 b2
+	VUNPCKHPD Y1, Y0, Y5 // a1 b1 a3 b3
+	VUNPCKLPD Y3, Y2, Y6 // c0 d0 c2 d2
+	VUNPCKHPD Y3, Y2, Y7 // c1 d1 c3 d3
+	VPERM2F128 $0x20, Y6, Y4, Y0 // a0 b0 c0 d0
+	VPERM2F128 $0x20, Y7, Y5, Y1 // a1 b1 c1 d1
+	VPERM2F128 $0x31, Y6, Y4, Y2 // a2 b2 c2 d2
+	VPERM2F128 $0x31, Y7, Y5, Y3 // a3 b3 c3 d3
+	VMOVUPD Y0, (DI)
+	VMOVUPD Y1, (DI)(R8*1)
+	VMOVUPD Y2, (DI)(R8*2)
+	VMOVUPD Y3, (DI)(R13*1)
+	ADDQ $32, SI
+	ADDQ $32, R10
+	ADDQ $32, R11
+	ADDQ $32, R12
+	LEAQ (DI)(R8*4), DI
+	SUBQ $4, CX
+	JG tloop
+	VZEROUPPER
+	RET

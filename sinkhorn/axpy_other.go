@@ -29,3 +29,5 @@ func axpyPair1(out []float64, w float64, a, b []float64) {
 func band4(out, src []float64, stride, cols int, wp []float64, wi, nj int) bool { return false }
 
 func conv1d(out, in, w []float64) int { return 0 }
+
+func transpose(dst, src []float64, rows, cols int) { transposeGo(dst, src, rows, cols, 0, 0) }

@@ -273,3 +273,34 @@ func TestRelaxLog(t *testing.T) {
 		}
 	}
 }
+
+// transpose (4 x 4 tiles in AVX2 registers, the rest in Go) against the
+// definition dst[c rows + r] = src[r cols + c], on every shape up to 13 x 13
+// (tiles and both tails) and on a 128 x 128 and a 37 x 258 grid.
+func TestTranspose(t *testing.T) {
+	check := func(rows, cols int) {
+		src := make([]float64, rows*cols)
+		for i := range src {
+			src[i] = float64(i) + 0.5
+		}
+		dst := make([]float64, rows*cols)
+		for i := range dst {
+			dst[i] = math.NaN()
+		}
+		transpose(dst, src, rows, cols)
+		for r := range rows {
+			for c := range cols {
+				if dst[c*rows+r] != src[r*cols+c] {
+					t.Fatalf("%d x %d: dst[%d][%d] = %v, want %v", rows, cols, c, r, dst[c*rows+r], src[r*cols+c])
+				}
+			}
+		}
+	}
+	for rows := 1; rows <= 13; rows++ {
+		for cols := 1; cols <= 13; cols++ {
+			check(rows, cols)
+		}
+	}
+	check(128, 128)
+	check(37, 258)
+}

@@ -240,12 +240,19 @@ func expNeg(x float64) float64 {
 	return scale * p
 }
 
-func transpose(dst, src []float64, rows, cols int) {
+// transposeGo is transpose without assembly, in 32 x 32 blocks, for the
+// rows from r4 on (all their columns) and the columns from c4 on of the
+// rows above r4: what transpose's tiles leave, or with r4 = 0 everything.
+func transposeGo(dst, src []float64, rows, cols, r4, c4 int) {
 	const b = 32
 	for r0 := 0; r0 < rows; r0 += b {
 		for c0 := 0; c0 < cols; c0 += b {
 			for r := r0; r < min(r0+b, rows); r++ {
-				for c := c0; c < min(c0+b, cols); c++ {
+				c := c0
+				if r < r4 {
+					c = max(c0, c4)
+				}
+				for ; c < min(c0+b, cols); c++ {
 					dst[c*rows+r] = src[r*cols+c]
 				}
 			}
