@@ -6,21 +6,15 @@
 # runs on either side of it: on a shared machine the load changes from one
 # minute to the next, and only neighbouring runs see the same one.
 # Usage: bench/against_p.sh [SIZE] [ROUNDS]   (needs ../shared and Debian's numpy)
-set -euo pipefail
-cd "$(dirname "$0")/.."
 size=${1:-256}
 rounds=${2:-3}
-tmp=$(mktemp -d)
-trap 'rm -rf "$tmp"' EXIT
+source "$(dirname "$0")/lib.sh"
 /usr/bin/python3 ../shared/bench/make_fields.py --k 8 --size 128 --seed 2 --dir "$tmp/p" >/dev/null
 /usr/bin/python3 ../shared/bench/make_fields.py --k 8 --size "$size" --seed 2 --dir "$tmp/f" >/dev/null
-go build -o "$tmp/barygrid" ./cmd/barygrid
-t() { local t0; t0=$(date +%s.%N); "$@" >/dev/null 2>&1 || true; echo "$(date +%s.%N) - $t0" | bc; }
-peer() { t /usr/bin/python3 ../shared/bench/peer_barycenter.py --eps 16 --tol 1e-6 --out "$tmp/peer.npy" "$tmp"/p/field_*.npy; }
-before=$(peer)
+before=$(peer_p "$tmp/p")
 for round in $(seq "$rounds"); do
   B=$(t "$tmp/barygrid" barycenter --tol 1e-6 --force --out "$tmp/ours.npy" --report "$tmp/r.json" "$tmp"/f/field_*.npy)
-  after=$(peer)
+  after=$(peer_p "$tmp/p")
   echo "round $round: barygrid default ${size}x${size} $B s; P before $before s, after $after s; ratio $(echo "scale=3; 2 * $B / ($before + $after)" | bc) P"
   before=$after
 done

@@ -6,17 +6,12 @@
 # (epsilon one squared pixel), and the distance command between the first two
 # fields at epsilon 4 (the engine issue's target: P/10).
 # Usage: bench/compare.sh [SIZE] [ROUNDS]   (needs ../shared and Debian's numpy)
-set -euo pipefail
-cd "$(dirname "$0")/.."
 size=${1:-128}
 rounds=${2:-1}
-tmp=$(mktemp -d)
-trap 'rm -rf "$tmp"' EXIT
+source "$(dirname "$0")/lib.sh"
 /usr/bin/python3 ../shared/bench/make_fields.py --k 8 --size "$size" --seed 2 --dir "$tmp/f" >/dev/null
-go build -o "$tmp/barygrid" ./cmd/barygrid
-t() { local t0; t0=$(date +%s.%N); "$@" >/dev/null 2>&1 || true; echo "$(date +%s.%N) - $t0" | bc; }
 for round in $(seq "$rounds"); do
-  P=$(t /usr/bin/python3 ../shared/bench/peer_barycenter.py --eps 16 --tol 1e-6 --out "$tmp/peer.npy" "$tmp"/f/field_*.npy)
+  P=$(peer_p "$tmp/f")
   A=$(t "$tmp/barygrid" barycenter --epsilon 16 --tol 1e-6 --force --out "$tmp/ours16.npy" --report "$tmp/r16.json" "$tmp"/f/field_*.npy)
   B=$(t "$tmp/barygrid" barycenter --tol 1e-6 --force --out "$tmp/ours1.npy" --report "$tmp/r1.json" "$tmp"/f/field_*.npy)
   D=$(t "$tmp/barygrid" distance --epsilon 4 "$tmp"/f/field_00.npy "$tmp"/f/field_01.npy)

@@ -36,8 +36,8 @@ func newLogKernel(rows, cols int, dx, dy, eps float64) *logKernel {
 type lseScratch struct {
 	v               []int
 	z, pre, suf, ex []float64 // ex: the terms of the current output, by j
-	env             []float64 // the envelope's values (see lseLine)
-	jstar           []int
+	env             []float64 // each output's largest term (see lseLine)
+	jstar           []int     // and where it lies
 	zero            []float64 // zeros, the reference of lseLine's exps
 }
 
@@ -118,25 +118,20 @@ func lseLine(out, h []float64, c, drop float64, s *lseScratch, rec *windows) {
 		mx = math.Max(mx, h[j])
 		suf[j] = mx
 	}
-	// The envelope's values E(x) = max_j h_j - c (x - j)^2, the largest
-	// term of each output, bound the others too (see the scans).
-	env := s.env[:n]
+	// Each output's maximiser j*(i) and largest term, the envelope's value
+	// E(i) = max_j h_j - c (i - j)^2, which bounds the other terms too (see
+	// the scans).
+	env, jstar := s.env[:n], s.jstar[:n]
 	for i, e := 0, 0; i < n; i++ {
 		for e < m && z[e+1] < float64(i) {
 			e++
 		}
 		d := float64(i) - float64(v[e])
-		env[i] = h[v[e]] - c*d*d
+		jstar[i], env[i] = v[e], h[v[e]]-c*d*d
 	}
-	e := 0
 	for i := 0; i < n; i++ {
-		for e < m && z[e+1] < float64(i) {
-			e++
-		}
-		js := v[e]
+		js, best := jstar[i], env[i]
 		fi := float64(i)
-		d := fi - float64(js)
-		best := h[js] - c*d*d
 		// The scans record each term's exponent (-Inf for a dropped
 		// one) and the exps follow in one vector call (expShift): one
 		// expNeg per term was a third of a rebuild.
