@@ -149,6 +149,16 @@ expend:
 	VFMADD231PD 736(R9), Y7, Y6; \
 	VFMADD231PD 768(R9), Y7, Y6
 
+// POSNORMAL4 jumps to bad unless all four numbers in Y0 are positive
+// normal numbers below +Inf (the inputs LOG4 takes); it clobbers Y1, Y2, BX.
+#define POSNORMAL4(bad) \
+	VCMPPD $0x1d, 384(R9), Y0, Y1; \
+	VCMPPD $0x11, 32(R9), Y0, Y2; \
+	VANDPD Y2, Y1, Y1; \
+	VMOVMSKPD Y1, BX; \
+	CMPQ BX, $15; \
+	JNE bad
+
 // dst[i] = out0[i] + shift + log(dst[i]) by fastLog's reduction, for n a
 // multiple of 4. It stops before the first group of four with a sum that
 // is not a positive normal number (zero where every input was -Inf) and
@@ -166,12 +176,7 @@ TEXT ·logAddAVX(SB), NOSPLIT, $0-64
 	JLE logend
 logloop:
 	VMOVUPD (DI), Y0
-	VCMPPD $0x1d, 384(R9), Y0, Y1 // s >= smallest normal (GE_OQ)
-	VCMPPD $0x11, 32(R9), Y0, Y2  // s < +Inf (LT_OQ)
-	VANDPD Y2, Y1, Y1
-	VMOVMSKPD Y1, BX
-	CMPQ BX, $15
-	JNE logend
+	POSNORMAL4(logend)
 	LOG4
 	VMOVUPD (SI), Y11
 	VADDPD Y14, Y11, Y11
@@ -252,12 +257,7 @@ TEXT ·logAxpyAVX(SB), NOSPLIT, $0-64
 	JLE laend
 laloop:
 	VMOVUPD (SI), Y0
-	VCMPPD $0x1d, 384(R9), Y0, Y1 // x >= smallest normal (GE_OQ)
-	VCMPPD $0x11, 32(R9), Y0, Y2  // x < +Inf (LT_OQ)
-	VANDPD Y2, Y1, Y1
-	VMOVMSKPD Y1, BX
-	CMPQ BX, $15
-	JNE laend
+	POSNORMAL4(laend)
 	LOG4
 	VMOVUPD (DI), Y11
 	VFMADD231PD Y14, Y6, Y11       // acc + w log x
