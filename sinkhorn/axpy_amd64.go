@@ -90,21 +90,26 @@ func conv1d(out, in, w []float64) int {
 }
 
 //go:noescape
-func transpose4AVX(dst, src *float64, rows, cols, n int)
+func transpose8AVX(dst, src *float64, rows, cols, r4 int)
 
 // transpose writes the cols x rows transpose of src (rows x cols, row-major)
-// to dst: four rows at a time by 4 x 4 tiles in registers (transpose4AVX)
-// where the CPU has AVX2, the rest by transposeGo.
+// to dst where the CPU has AVX2: strips of eight columns, walked down four
+// rows at a time by 4 x 4 tiles in registers (transpose8AVX), the rest by
+// transposeGo. Strips of four rows walked across (transpose4AVX) wrote 32
+// of each destination line's 64 bytes per strip; at sides of 128, 256 and
+// 512 the destination rows map to a few cache sets, so the lines left the
+// cache between the halves (1.0, 1.6, 2.1 ns per element against 0.19 at
+// 200).
 func transpose(dst, src []float64, rows, cols int) {
-	n := cols &^ 3
+	c8 := cols &^ 7
 	r4 := rows &^ 3
-	if !useAVX || n == 0 || r4 == 0 {
+	if !useAVX || c8 == 0 || r4 == 0 {
 		transposeGo(dst, src, rows, cols, 0, 0)
 		return
 	}
 	_, _ = dst[rows*cols-1], src[rows*cols-1]
-	for r := 0; r < r4; r += 4 {
-		transpose4AVX(&dst[r], &src[r*cols], rows, cols, n)
+	for c := 0; c < c8; c += 8 {
+		transpose8AVX(&dst[c*rows], &src[c], rows, cols, r4)
 	}
-	transposeGo(dst, src, rows, cols, r4, n)
+	transposeGo(dst, src, rows, cols, r4, c8)
 }

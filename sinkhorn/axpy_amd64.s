@@ -199,46 +199,60 @@ ctap:
 	VZEROUPPER
 	RET
 
-// func transpose4AVX(dst, src *float64, rows, cols, n int)
-// Transposes a strip of four rows of src (rows x cols, row-major) into
-// four columns of dst (cols x rows): dst[c*rows + i] = src[i*cols + c] for
-// i < 4 and c < n, a positive multiple of 4; each 4 x 4 tile by two
-// unpacks and two lane permutes.
-TEXT ·transpose4AVX(SB), NOSPLIT, $0-40
+// func transpose8AVX(dst, src *float64, rows, cols, r4 int)
+// Transposes a strip of eight columns of src (rows x cols, row-major) into
+// eight rows of dst (cols x rows): dst[c*rows + i] = src[i*cols + c] for
+// c < 8 and i < r4, a positive multiple of 4; two 4 x 4 tiles at a time by
+// unpacks and lane permutes. Walking down the strip writes each of the
+// eight destination rows in order.
+TEXT ·transpose8AVX(SB), NOSPLIT, $0-40
 	MOVQ dst+0(FP), DI
 	MOVQ src+8(FP), SI
 	MOVQ rows+16(FP), R8
 	SHLQ $3, R8
 	MOVQ cols+24(FP), R9
 	SHLQ $3, R9
-	MOVQ n+32(FP), CX
-	LEAQ (SI)(R9*1), R10 // row 1
-	LEAQ (R10)(R9*1), R11 // row 2
-	LEAQ (R11)(R9*1), R12 // row 3
-	LEAQ (R8)(R8*2), R13  // 3 rows of dst
-tloop:
+	MOVQ r4+32(FP), CX
+	LEAQ (R9)(R9*2), R10 // 3 rows of src
+	LEAQ (R8)(R8*2), R13 // 3 rows of dst
+	LEAQ (DI)(R8*4), DX  // dst row 4
+t8loop:
 	VMOVUPD (SI), Y0
-	VMOVUPD (R10), Y1
-	VMOVUPD (R11), Y2
-	VMOVUPD (R12), Y3
-	VUNPCKLPD Y1, Y0, Y4 // a0 b0 a2 b2
-	VUNPCKHPD Y1, Y0, Y5 // a1 b1 a3 b3
-	VUNPCKLPD Y3, Y2, Y6 // c0 d0 c2 d2
-	VUNPCKHPD Y3, Y2, Y7 // c1 d1 c3 d3
-	VPERM2F128 $0x20, Y6, Y4, Y0 // a0 b0 c0 d0
-	VPERM2F128 $0x20, Y7, Y5, Y1 // a1 b1 c1 d1
-	VPERM2F128 $0x31, Y6, Y4, Y2 // a2 b2 c2 d2
-	VPERM2F128 $0x31, Y7, Y5, Y3 // a3 b3 c3 d3
+	VMOVUPD (SI)(R9*1), Y1
+	VMOVUPD (SI)(R9*2), Y2
+	VMOVUPD (SI)(R10*1), Y3
+	VMOVUPD 32(SI), Y8
+	VMOVUPD 32(SI)(R9*1), Y9
+	VMOVUPD 32(SI)(R9*2), Y10
+	VMOVUPD 32(SI)(R10*1), Y11
+	VUNPCKLPD Y1, Y0, Y4
+	VUNPCKHPD Y1, Y0, Y5
+	VUNPCKLPD Y3, Y2, Y6
+	VUNPCKHPD Y3, Y2, Y7
+	VPERM2F128 $0x20, Y6, Y4, Y0
+	VPERM2F128 $0x20, Y7, Y5, Y1
+	VPERM2F128 $0x31, Y6, Y4, Y2
+	VPERM2F128 $0x31, Y7, Y5, Y3
+	VUNPCKLPD Y9, Y8, Y12
+	VUNPCKHPD Y9, Y8, Y13
+	VUNPCKLPD Y11, Y10, Y14
+	VUNPCKHPD Y11, Y10, Y15
+	VPERM2F128 $0x20, Y14, Y12, Y8
+	VPERM2F128 $0x20, Y15, Y13, Y9
+	VPERM2F128 $0x31, Y14, Y12, Y10
+	VPERM2F128 $0x31, Y15, Y13, Y11
 	VMOVUPD Y0, (DI)
 	VMOVUPD Y1, (DI)(R8*1)
 	VMOVUPD Y2, (DI)(R8*2)
 	VMOVUPD Y3, (DI)(R13*1)
-	ADDQ $32, SI
-	ADDQ $32, R10
-	ADDQ $32, R11
-	ADDQ $32, R12
-	LEAQ (DI)(R8*4), DI
+	VMOVUPD Y8, (DX)
+	VMOVUPD Y9, (DX)(R8*1)
+	VMOVUPD Y10, (DX)(R8*2)
+	VMOVUPD Y11, (DX)(R13*1)
+	LEAQ (SI)(R9*4), SI
+	ADDQ $32, DI
+	ADDQ $32, DX
 	SUBQ $4, CX
-	JG tloop
+	JG t8loop
 	VZEROUPPER
 	RET

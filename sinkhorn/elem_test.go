@@ -303,4 +303,5 @@ func TestTranspose(t *testing.T) {
 	}
 	check(128, 128)
 	check(37, 258)
+	check(258, 37)
 }

@@ -106,11 +106,13 @@ func (k *bandKernel) Apply(dst, src, tmp []float64) {
 // conv1dReach is the widest band (taps on either side) that the x pass
 // takes by conv1d; wider ones transpose and take bandPass, whose input
 // loads are aligned and serve four outputs each (conv1d's unaligned loads
-// cross cache lines 3 times in 8). Measured at 128^2 (BenchmarkKernel/
-// scaling, same run): 27 taps (epsilon 1) 50 us by conv1d, 71-72 us with
-// transposes; 55 (epsilon 4) 95-97 against 106-107; 109 (epsilon 16)
-// 175-177 against 158-161.
-const conv1dReach = 40
+// cross cache lines 3 times in 8). Measured after the transposes went to
+// column strips (BenchmarkKernel/scaling, same run): 128^2, 13 taps a side
+// (epsilon 1) 50-58 us by conv1d, 46-48 us with transposes; 27 (epsilon 4)
+// 99-103 against 79-82; 54 (epsilon 16) 129-133 either way as before. At
+// 256^2 conv1d keeps a lead on narrow bands (6 and 13 taps: 1.7 against 2.1
+// and 3.2 against 3.7 ns per pixel) and 27 taps are even.
+const conv1dReach = 20
 
 // bandPass is axpyPass with four output rows and eight columns at a time
 // held in registers (band4), where the CPU has AVX2 and FMA: each input row
