@@ -189,3 +189,29 @@ func BenchmarkDotPass(b *testing.B) {
 		})
 	}
 }
+
+// BenchmarkAbsorbedSides applies one absorbed instance (epsilon 1, single
+// precision, built once) at power-of-two sides and one beside them, in ns
+// per pixel: a layout whose lines share cache sets at 256 and 512 shows as
+// a jump against 500.
+func BenchmarkAbsorbedSides(b *testing.B) {
+	for _, n := range []int{256, 500, 512} {
+		b.Run(fmt.Sprintf("n=%d", n), func(b *testing.B) {
+			a := newAbsKernel(newLogKernel(n, n, 1, 1, 1), true, true)
+			src := make([]float64, n*n)
+			for r := 0; r < n; r++ {
+				for c := 0; c < n; c++ {
+					x, y := float64(c)-0.4*float64(n), float64(r)-0.55*float64(n)
+					src[r*n+c] = -(x*x+y*y)/8 + 3*x
+				}
+			}
+			dst, x := make([]float64, len(src)), make([]float64, len(src))
+			a.apply(dst, src, x)
+			src[0] += 1
+			for b.Loop() {
+				a.apply(dst, src, x)
+			}
+			b.ReportMetric(float64(b.Elapsed().Nanoseconds())/float64(b.N*n*n), "ns/px")
+		})
+	}
+}
