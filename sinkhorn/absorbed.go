@@ -60,10 +60,24 @@ type windows struct {
 	w       []float64
 	single  bool
 	w32     []float32
+	// With blocked set (single precision only) lseLine records blocks
+	// instead (see horner.go): per block of four outputs its first input
+	// j0, its coefficients a[aoff[b]:aoff[b+1]], and per output nrm. A
+	// block that does not fit keeps per-output windows in xlo, xoff, xw
+	// and j0 = -1 - its first entry there. hc holds hornerConsts.
+	blocked   bool
+	j0, aoff  []int32
+	a         []float32
+	nrm       []float64
+	xlo, xoff []int32
+	xw        []float32
+	hc        [32]float64
 }
 
 func (r *windows) reset() {
 	r.lo, r.off, r.w, r.w32 = r.lo[:0], append(r.off[:0], 0), r.w[:0], r.w32[:0]
+	r.j0, r.aoff, r.a, r.nrm = r.j0[:0], append(r.aoff[:0], 0), r.a[:0], r.nrm[:0]
+	r.xlo, r.xoff, r.xw = r.xlo[:0], append(r.xoff[:0], 0), r.xw[:0]
 }
 
 // addScaled closes the next output's window: weights x[j] * inv for
@@ -127,6 +141,8 @@ type absKernel struct {
 	// residual with the full kernel (logIter.verify) and falls back to
 	// double where that check fails.
 	single bool
+	// blocked: single-precision windows in blocks (horner.go).
+	blocked bool
 }
 
 // newAbsKernel returns an instance for a balanced problem (the table log
@@ -165,20 +181,31 @@ func (a *absKernel) setSingle(single bool) {
 	// The windows' expected size up front: growing them by doubling left
 	// twice their size as garbage per instance and level (measured: 377 MB
 	// allocated in a 128^2 solve whose windows hold 63 MB).
+	a.blocked = single && min(k.rows, k.cols) >= 8
 	size := func(ws []windows, c float64, line, lines int) {
 		for b := range ws {
 			l0, l1 := band(b, len(ws), lines)
 			outs := (l1 - l0) * line
 			w := &ws[b]
-			w.single = single
+			w.single, w.blocked = single, a.blocked
 			m := outs * min(line, int(2*math.Sqrt(a.drop/c))+1)
-			w.w, w.w32 = nil, nil
-			if single {
+			w.w, w.w32, w.lo, w.off = nil, nil, nil, nil
+			w.j0, w.aoff, w.a, w.nrm = nil, nil, nil, nil
+			switch {
+			case a.blocked:
+				blocks := (l1 - l0) * ((line + 3) / 4)
+				w.hc = hornerConsts(c)
+				w.j0, w.aoff = make([]int32, 0, blocks), make([]int32, 0, blocks+1)
+				w.a = make([]float32, 0, blocks*(min(line, int(2*math.Sqrt(a.drop/c))+1)+6))
+				w.nrm = make([]float64, 0, 4*blocks)
+			case single:
 				w.w32 = make([]float32, 0, m)
-			} else {
+			default:
 				w.w = make([]float64, 0, m)
 			}
-			w.lo, w.off = make([]int32, 0, outs), make([]int32, 0, outs+1)
+			if !a.blocked {
+				w.lo, w.off = make([]int32, 0, outs), make([]int32, 0, outs+1)
+			}
 		}
 	}
 	size(a.p1, k.cx, k.cols, k.rows)
@@ -259,6 +286,10 @@ func (a *absKernel) apply(dst, src, x []float64) {
 	for b := range a.p1 {
 		l0, l1 := band(b, len(a.p1), k.rows)
 		for r := l0; r < l1; r++ {
+			if a.blocked {
+				hornerPass(s1[r*k.cols:], &a.p1[b], (r-l0)*((k.cols+3)/4), k.cols, ee[r*k.cols:(r+1)*k.cols])
+				continue
+			}
 			dotPass(s1[r*k.cols:], 1, &a.p1[b], (r-l0)*k.cols, k.cols, ee[r*k.cols:(r+1)*k.cols])
 		}
 	}
@@ -266,6 +297,10 @@ func (a *absKernel) apply(dst, src, x []float64) {
 	for b := range a.p2 {
 		l0, l1 := band(b, len(a.p2), k.cols)
 		for c := l0; c < l1; c++ {
+			if a.blocked {
+				hornerPass(x[c*k.rows:], &a.p2[b], (c-l0)*((k.rows+3)/4), k.rows, dst[c*k.rows:(c+1)*k.rows])
+				continue
+			}
 			dotPass(x[c*k.rows:], 1, &a.p2[b], (c-l0)*k.rows, k.rows, dst[c*k.rows:(c+1)*k.rows])
 		}
 	}

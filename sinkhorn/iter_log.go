@@ -138,16 +138,22 @@ func MemoryEstimate(k, rows, cols int) float64 {
 // absorbBytes estimates one absorbed instance's memory on the level: the
 // window weights of both passes (about 2 sqrt(drop / c) + 1 per output
 // and axis), their indices, its reference and its output (its scratch comes
-// per task).
+// per task). Single-precision windows are blocked (horner.go): per output
+// and pass a quarter of a block's union (the window, three more outputs'
+// reach and the padding to four: about w + 4.5 singles over four), its
+// normalisation and a quarter of the block's two indices.
 func absorbBytes(lv *level, eps float64, balanced, single bool) float64 {
 	drop, size := absorbDrop, 8.0
 	if balanced && !single {
 		drop = narrowDrop
 	}
 	if single {
-		drop, size = singleDrop, 4
+		drop = singleDrop
 	}
 	w := func(h float64) float64 { return 2*math.Sqrt(drop*eps)/h + 1 }
+	if single {
+		return float64(lv.n) * ((w(lv.dx) + 6) + (w(lv.dy) + 6) + 2*(8+2) + 16)
+	}
 	return float64(lv.n) * (size*(w(lv.dx)+w(lv.dy)) + 16 + 2*8)
 }
 

@@ -1,6 +1,9 @@
 package sinkhorn
 
-import "math"
+import (
+	"math"
+	"slices"
+)
 
 // logKernel applies the Gibbs kernel in the log domain,
 //
@@ -39,12 +42,15 @@ type lseScratch struct {
 	env             []float64 // each output's largest term (see lseLine)
 	jstar           []int     // and where it lies
 	zero            []float64 // zeros, the reference of lseLine's exps
+	wlo, whi        []int32   // each output's window, for blocked windows
+	one             []float64 // ones, the reference input of their sums
 }
 
 func newLSEScratch(rows, cols int) *lseScratch {
 	n := max(rows, cols)
 	return &lseScratch{v: make([]int, n), z: make([]float64, n+1), pre: make([]float64, n), suf: make([]float64, n),
-		ex: make([]float64, n), env: make([]float64, n), jstar: make([]int, n), zero: make([]float64, n)}
+		ex: make([]float64, n), env: make([]float64, n), jstar: make([]int, n), zero: make([]float64, n),
+		wlo: make([]int32, n), whi: make([]int32, n), one: slices.Repeat([]float64{1}, n)}
 }
 
 // apply writes the log-domain kernel of src to dst; tmp has their size.
@@ -98,9 +104,12 @@ func lseLine(out, h []float64, c, drop float64, s *lseScratch, rec *windows) {
 		z[m+1] = math.Inf(1)
 	}
 	if m < 0 {
+		if rec != nil && rec.blocked {
+			rec.addEmptyBlocks(n)
+		}
 		for i := range out {
 			out[i] = ninf
-			if rec != nil {
+			if rec != nil && !rec.blocked {
 				rec.addScaled(0, nil, 1)
 			}
 		}
@@ -179,6 +188,10 @@ func lseLine(out, h []float64, c, drop float64, s *lseScratch, rec *windows) {
 				lo = j
 			}
 		}
+		if rec != nil && rec.blocked {
+			s.wlo[i], s.whi[i] = int32(lo), int32(hi) // the blocks follow
+			continue
+		}
 		win := ex[lo : hi+1]
 		// The exps run on whole groups of four where the line allows (a
 		// scalar tail of one to three expNeg calls per output was 2% of a
@@ -205,6 +218,10 @@ func lseLine(out, h []float64, c, drop float64, s *lseScratch, rec *windows) {
 		if rec != nil {
 			rec.addScaled(lo, win, 1/sum)
 		}
+	}
+	if rec != nil && rec.blocked {
+		rec.addBlocks(out, h, c, s)
+		return
 	}
 	if rec != nil && rec.single {
 		// out = env + log(sum), four lanes at a time (a scalar fastLog per

@@ -40,3 +40,25 @@ func dotPass(out []float64, stride int, r *windows, first, n int, x []float64) {
 	}
 	dotPassGo(out, stride, r, first, n, x)
 }
+
+//go:noescape
+func hornerAVX(out, x *float64, j0, aoff *int32, a *float32, nrm *float64, nb int, hc *float64) int
+
+// noCoeffs stands in for the coefficients of windows that have none.
+var noCoeffs [1]float32
+
+// hornerBlocks runs hornerAVX on up to nb whole blocks of a line from block
+// b (out from the block's first output) and returns how many it took: it
+// stops at an irregular one.
+func hornerBlocks(out []float64, r *windows, b, nb int, x []float64) int {
+	if !useAVX || nb == 0 {
+		return 0
+	}
+	_, _ = out[4*nb-1], r.nrm[4*(b+nb)-1]
+	_, _ = r.j0[b+nb-1], r.aoff[b+nb]
+	a := &noCoeffs[0]
+	if len(r.a) > 0 {
+		a = &r.a[0]
+	}
+	return hornerAVX(&out[0], &x[0], &r.j0[b], &r.aoff[b], a, &r.nrm[4*b], nb, &r.hc[0])
+}

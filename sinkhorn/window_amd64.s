@@ -149,3 +149,79 @@ hsum32:
 done32:
 	VZEROUPPER
 	RET
+
+// func hornerAVX(out, x *float64, j0, aoff *int32, a *float32, nrm *float64, nb int, hc *float64)
+// For nb blocks of four outputs (horner.go): out[4b + d] = nrm[4b + d] *
+// sum_e a[aoff[b] + e] x[j0[b] + e] rho_d^e, the sum four terms at a time
+// with the powers of each output in a register (hc: the first four powers
+// of each rho_d, then rho_d^4 four times each), the four outputs' sums
+// folded into one vector at the end. aoff[b+1] - aoff[b] is a multiple of 4.
+// It stops before the first block with j0 < 0 (per-output windows) and
+// returns the number of blocks it wrote.
+TEXT ·hornerAVX(SB), NOSPLIT, $0-72
+	MOVQ out+0(FP), DI
+	MOVQ x+8(FP), SI
+	MOVQ j0+16(FP), R8
+	MOVQ aoff+24(FP), R9
+	MOVQ a+32(FP), R10
+	MOVQ nrm+40(FP), R11
+	MOVQ nb+48(FP), CX
+	MOVQ hc+56(FP), DX
+	VMOVUPD 128(DX), Y8
+	VMOVUPD 160(DX), Y9
+	VMOVUPD 192(DX), Y10
+	VMOVUPD 224(DX), Y11
+hblock:
+	MOVLQSX (R8), AX
+	TESTQ AX, AX
+	JS hstop
+	LEAQ (SI)(AX*8), BX  // x + j0
+	MOVLQSX (R9), AX
+	MOVLQSX 4(R9), R12
+	SUBQ AX, R12         // terms
+	LEAQ (R10)(AX*4), R13 // a + aoff
+	VXORPD Y0, Y0, Y0
+	VXORPD Y1, Y1, Y1
+	VXORPD Y2, Y2, Y2
+	VXORPD Y3, Y3, Y3
+	VMOVUPD 0(DX), Y4
+	VMOVUPD 32(DX), Y5
+	VMOVUPD 64(DX), Y6
+	VMOVUPD 96(DX), Y7
+	TESTQ R12, R12
+	JLE hfold
+hloop:
+	VCVTPS2PD (R13), Y12
+	VMULPD (BX), Y12, Y12
+	VFMADD231PD Y4, Y12, Y0
+	VFMADD231PD Y5, Y12, Y1
+	VFMADD231PD Y6, Y12, Y2
+	VFMADD231PD Y7, Y12, Y3
+	VMULPD Y8, Y4, Y4
+	VMULPD Y9, Y5, Y5
+	VMULPD Y10, Y6, Y6
+	VMULPD Y11, Y7, Y7
+	ADDQ $16, R13
+	ADDQ $32, BX
+	SUBQ $4, R12
+	JG hloop
+hfold:
+	VHADDPD Y1, Y0, Y0 // s0 s1 (lanes 0+1), s0 s1 (lanes 2+3)
+	VHADDPD Y3, Y2, Y2 // the same for s2 s3
+	VPERM2F128 $0x20, Y2, Y0, Y13
+	VPERM2F128 $0x31, Y2, Y0, Y14
+	VADDPD Y14, Y13, Y13
+	VMULPD (R11), Y13, Y13
+	VMOVUPD Y13, (DI)
+	ADDQ $32, DI
+	ADDQ $32, R11
+	ADDQ $4, R8
+	ADDQ $4, R9
+	DECQ CX
+	JG hblock
+hstop:
+	MOVQ nb+48(FP), AX
+	SUBQ CX, AX
+	MOVQ AX, ret+64(FP)
+	VZEROUPPER
+	RET
