@@ -64,14 +64,15 @@ type windows struct {
 	// instead (see horner.go): per block of four outputs its first input
 	// j0, its coefficients a[aoff[b]:aoff[b+1]], and per output nrm. A
 	// block that does not fit keeps per-output windows in xlo, xoff, xw
-	// and j0 = -1 - its first entry there. hc holds hornerConsts.
+	// and j0 = -1 - its first entry there. hp holds hornerPowers (shared
+	// by the bands of a pass).
 	blocked   bool
 	j0, aoff  []int32
 	a         []float32
 	nrm       []float64
 	xlo, xoff []int32
 	xw        []float32
-	hc        [32]float64
+	hp        []float64
 }
 
 func (r *windows) reset() {
@@ -183,6 +184,10 @@ func (a *absKernel) setSingle(single bool) {
 	// allocated in a 128^2 solve whose windows hold 63 MB).
 	a.blocked = single && min(k.rows, k.cols) >= 8
 	size := func(ws []windows, c float64, line, lines int) {
+		var hp []float64
+		if a.blocked {
+			hp = hornerPowers(c, line)
+		}
 		for b := range ws {
 			l0, l1 := band(b, len(ws), lines)
 			outs := (l1 - l0) * line
@@ -194,7 +199,7 @@ func (a *absKernel) setSingle(single bool) {
 			switch {
 			case a.blocked:
 				blocks := (l1 - l0) * ((line + 3) / 4)
-				w.hc = hornerConsts(c)
+				w.hp = hp
 				w.j0, w.aoff = make([]int32, 0, blocks), make([]int32, 0, blocks+1)
 				w.a = make([]float32, 0, blocks*(min(line, int(2*math.Sqrt(a.drop/c))+1)+6))
 				w.nrm = make([]float64, 0, 4*blocks)

@@ -39,21 +39,24 @@ import (
 // keeps: single precision spans exp(-87) to exp(88).
 const hornerRange = 170
 
-// hornerConsts returns, for cost coefficient c, rho_d^k for d, k = 0..3 (the
-// first powers, four per output) and rho_d^4 four times each (the step).
-func hornerConsts(c float64) (hc [32]float64) {
-	for d := range 4 {
-		rho := math.Exp(2 * c * (float64(d) - 1.5))
-		p := 1.0
-		for k := range 4 {
-			hc[4*d+k] = p
-			p *= rho
-		}
-		for k := range 4 {
-			hc[16+4*d+k] = p
+// hornerPowers returns the table of rho_d^e = exp(2 c (d - 3/2) e) for a
+// block's terms e = 0.. on a line of n: sixteen entries per four terms (four
+// powers for each d), for as many terms as the line holds and the powers
+// stay below exp(500), so that the sums stay within double's range.
+func hornerPowers(c float64, n int) []float64 {
+	terms := (n + 3) &^ 3
+	if m := int(500/(3*c)) &^ 3; m < terms {
+		terms = m
+	}
+	hp := make([]float64, 4*max(terms, 0))
+	for g := 0; g < terms/4; g++ {
+		for d := range 4 {
+			for k := range 4 {
+				hp[16*g+4*d+k] = math.Exp(2 * c * (float64(d) - 1.5) * float64(4*g+k))
+			}
 		}
 	}
-	return
+	return hp
 }
 
 // addBlocks records the blocks of one line of n = len(h) outputs from the
@@ -77,7 +80,7 @@ func (r *windows) addBlocks(out, h []float64, c float64, s *lseScratch) {
 			J0, J1 = min(J0, int(wlo[I+d])), max(J1, int(whi[I+d])+1)
 		}
 		ep := (J1 - J0 + 3) &^ 3
-		if ep > n || 3*c*float64(ep) > 500 {
+		if ep > n || 4*ep > len(r.hp) {
 			r.addIrregular(offs, h, c, s, I)
 			continue
 		}
@@ -212,9 +215,8 @@ func hornerPass(out []float64, r *windows, b0, n int, x []float64) {
 }
 
 // hornerBlockGo is one block of hornerPass without assembly (b counts from
-// the band's first block, I from the line's first output), with the powers
-// rho_d^e formed as the assembly forms them; an irregular block takes its
-// per-output windows.
+// the band's first block, I from the line's first output), summed as the
+// assembly sums; an irregular block takes its per-output windows.
 func hornerBlockGo(out []float64, r *windows, b, I, n int, x []float64) {
 	if r.j0[b] < 0 {
 		q := int(-1 - r.j0[b])
@@ -227,15 +229,13 @@ func hornerBlockGo(out []float64, r *windows, b, I, n int, x []float64) {
 	a := r.a[r.aoff[b]:r.aoff[b+1]]
 	J0 := int(r.j0[b])
 	for d := 0; d < min(4, n-I); d++ {
-		p := [4]float64(r.hc[4*d : 4*d+4])
-		step := r.hc[16+4*d]
-		var s [4]float64
+		var s [2][4]float64
 		for k := 0; k < len(a); k += 4 {
+			p := r.hp[4*k+4*d:]
 			for l := range 4 {
-				s[l] += float64(a[k+l]) * x[J0+k+l] * p[l]
-				p[l] *= step
+				s[k/4%2][l] += float64(a[k+l]) * x[J0+k+l] * p[l]
 			}
 		}
-		out[I+d] = r.nrm[4*b+d] * ((s[0] + s[1]) + (s[2] + s[3]))
+		out[I+d] = r.nrm[4*b+d] * (((s[0][0] + s[1][0]) + (s[0][1] + s[1][1])) + ((s[0][2] + s[1][2]) + (s[0][3] + s[1][3])))
 	}
 }

@@ -42,7 +42,7 @@ func dotPass(out []float64, stride int, r *windows, first, n int, x []float64) {
 }
 
 //go:noescape
-func hornerAVX(out, x *float64, j0, aoff *int32, a *float32, nrm *float64, nb int, hc *float64) int
+func hornerAVX(out, x *float64, j0, aoff *int32, a *float32, nrm *float64, nb int, hp *float64) int
 
 // noCoeffs stands in for the coefficients of windows that have none.
 var noCoeffs [1]float32
@@ -60,5 +60,5 @@ func hornerBlocks(out []float64, r *windows, b, nb int, x []float64) int {
 	if len(r.a) > 0 {
 		a = &r.a[0]
 	}
-	return hornerAVX(&out[0], &x[0], &r.j0[b], &r.aoff[b], a, &r.nrm[4*b], nb, &r.hc[0])
+	return hornerAVX(&out[0], &x[0], &r.j0[b], &r.aoff[b], a, &r.nrm[4*b], nb, &r.hp[0])
 }

@@ -150,13 +150,14 @@ done32:
 	VZEROUPPER
 	RET
 
-// func hornerAVX(out, x *float64, j0, aoff *int32, a *float32, nrm *float64, nb int, hc *float64)
+// func hornerAVX(out, x *float64, j0, aoff *int32, a *float32, nrm *float64, nb int, hp *float64) int
 // For nb blocks of four outputs (horner.go): out[4b + d] = nrm[4b + d] *
-// sum_e a[aoff[b] + e] x[j0[b] + e] rho_d^e, the sum four terms at a time
-// with the powers of each output in a register (hc: the first four powers
-// of each rho_d, then rho_d^4 four times each), the four outputs' sums
-// folded into one vector at the end. aoff[b+1] - aoff[b] is a multiple of 4.
-// It stops before the first block with j0 < 0 (per-output windows) and
+// sum_e a[aoff[b] + e] x[j0[b] + e] rho_d^e, four terms at a time against
+// the table of powers hp (16 per four terms: rho_d^e for each d), two
+// groups of four per step into two sets of sums (the sums' chains of
+// multiply-adds would otherwise set the pace), the four outputs' sums
+// folded into one vector at the end. aoff[b+1] - aoff[b] is a multiple of
+// 4. It stops before the first block with j0 < 0 (per-output windows) and
 // returns the number of blocks it wrote.
 TEXT ·hornerAVX(SB), NOSPLIT, $0-72
 	MOVQ out+0(FP), DI
@@ -166,46 +167,60 @@ TEXT ·hornerAVX(SB), NOSPLIT, $0-72
 	MOVQ a+32(FP), R10
 	MOVQ nrm+40(FP), R11
 	MOVQ nb+48(FP), CX
-	MOVQ hc+56(FP), DX
-	VMOVUPD 128(DX), Y8
-	VMOVUPD 160(DX), Y9
-	VMOVUPD 192(DX), Y10
-	VMOVUPD 224(DX), Y11
+	MOVQ hp+56(FP), DX
 hblock:
 	MOVLQSX (R8), AX
 	TESTQ AX, AX
 	JS hstop
-	LEAQ (SI)(AX*8), BX  // x + j0
+	LEAQ (SI)(AX*8), BX   // x + j0
 	MOVLQSX (R9), AX
 	MOVLQSX 4(R9), R12
-	SUBQ AX, R12         // terms
+	SUBQ AX, R12          // terms
 	LEAQ (R10)(AX*4), R13 // a + aoff
+	MOVQ DX, AX           // powers
 	VXORPD Y0, Y0, Y0
 	VXORPD Y1, Y1, Y1
 	VXORPD Y2, Y2, Y2
 	VXORPD Y3, Y3, Y3
-	VMOVUPD 0(DX), Y4
-	VMOVUPD 32(DX), Y5
-	VMOVUPD 64(DX), Y6
-	VMOVUPD 96(DX), Y7
-	TESTQ R12, R12
-	JLE hfold
+	VXORPD Y4, Y4, Y4
+	VXORPD Y5, Y5, Y5
+	VXORPD Y6, Y6, Y6
+	VXORPD Y7, Y7, Y7
+	CMPQ R12, $8
+	JL htail
 hloop:
 	VCVTPS2PD (R13), Y12
 	VMULPD (BX), Y12, Y12
-	VFMADD231PD Y4, Y12, Y0
-	VFMADD231PD Y5, Y12, Y1
-	VFMADD231PD Y6, Y12, Y2
-	VFMADD231PD Y7, Y12, Y3
-	VMULPD Y8, Y4, Y4
-	VMULPD Y9, Y5, Y5
-	VMULPD Y10, Y6, Y6
-	VMULPD Y11, Y7, Y7
-	ADDQ $16, R13
-	ADDQ $32, BX
-	SUBQ $4, R12
-	JG hloop
+	VCVTPS2PD 16(R13), Y13
+	VMULPD 32(BX), Y13, Y13
+	VFMADD231PD 0(AX), Y12, Y0
+	VFMADD231PD 32(AX), Y12, Y1
+	VFMADD231PD 64(AX), Y12, Y2
+	VFMADD231PD 96(AX), Y12, Y3
+	VFMADD231PD 128(AX), Y13, Y4
+	VFMADD231PD 160(AX), Y13, Y5
+	VFMADD231PD 192(AX), Y13, Y6
+	VFMADD231PD 224(AX), Y13, Y7
+	ADDQ $32, R13
+	ADDQ $64, BX
+	ADDQ $256, AX
+	SUBQ $8, R12
+	CMPQ R12, $8
+	JGE hloop
+htail:
+	TESTQ R12, R12
+	JLE hfold
+	VCVTPS2PD (R13), Y12
+	VMULPD (BX), Y12, Y12
+	VFMADD231PD 0(AX), Y12, Y0
+	VFMADD231PD 32(AX), Y12, Y1
+	VFMADD231PD 64(AX), Y12, Y2
+	VFMADD231PD 96(AX), Y12, Y3
 hfold:
+	VADDPD Y4, Y0, Y0
+	VADDPD Y5, Y1, Y1
+	VADDPD Y6, Y2, Y2
+	VADDPD Y7, Y3, Y3
 	VHADDPD Y1, Y0, Y0 // s0 s1 (lanes 0+1), s0 s1 (lanes 2+3)
 	VHADDPD Y3, Y2, Y2 // the same for s2 s3
 	VPERM2F128 $0x20, Y2, Y0, Y13
