@@ -138,15 +138,14 @@ func lseLine(out, h []float64, c, drop float64, s *lseScratch, rec *windows) {
 		d := float64(i) - float64(v[e])
 		jstar[i], env[i] = v[e], h[v[e]]-c*d*d
 	}
+	loPrev, hiPrev := n, -1
 	for i := 0; i < n; i++ {
 		js, best := jstar[i], env[i]
 		fi := float64(i)
-		// The scans record each term's exponent (-Inf for a dropped
-		// one) and the exps follow in one vector call (expShift): one
-		// expNeg per term was a third of a rebuild.
-		ex := s.ex[:n]
-		ex[js] = 0
-		lo, hi := js, js
+		keep := func(j int) bool { // the term is within the drop
+			d := float64(j) - fi
+			return h[j]-c*d*d-best > -drop
+		}
 		// Right of j*: once past i the distance only grows, so suf bounds
 		// everything further out. So does the envelope, much closer: for
 		// any x >= i and j' >= j, h_j' <= E(x) + c (j' - x)^2 gives
@@ -157,8 +156,13 @@ func lseLine(out, h []float64, c, drop float64, s *lseScratch, rec *windows) {
 		// quadratic h); to the left the same with x <= i and j' <= j.
 		// With the maxima alone the scans ran on four times the window (62
 		// terms per output for windows of 15.5, 8 x 256^2 at epsilon 1;
-		// with E(j) 39, with x = i + j - j* 24). The windows are the same.
-		for j := js + 1; j < n; j++ {
+		// with E(j) 39, with x = i + j - j* 24). The bounds hold from any
+		// j, so each scan starts past the previous output's window, where
+		// the next window's new terms are, and looks back inside it only
+		// when none is there (windows move with their outputs: 24 -> 6
+		// terms per output). The windows are the same.
+		hi, start := -1, max(js, hiPrev)+1
+		for j := start; j < n; j++ {
 			d := float64(j) - fi
 			cd := c * d * d
 			if j >= i && suf[j]-cd-best < -drop {
@@ -167,13 +171,21 @@ func lseLine(out, h []float64, c, drop float64, s *lseScratch, rec *windows) {
 			if x := min(i+j-js, n-1); env[x]-c*float64(x-i)*float64(2*j-x-i)-best < -drop {
 				break
 			}
-			ex[j] = ninf
-			if t := h[j] - cd - best; t > -drop {
-				ex[j] = t
+			if h[j]-cd-best > -drop {
 				hi = j
 			}
 		}
-		for j := js - 1; j >= 0; j-- {
+		if hi < 0 {
+			hi = js
+			for j := start - 1; j > js; j-- {
+				if keep(j) {
+					hi = j
+					break
+				}
+			}
+		}
+		lo, start := -1, min(js, loPrev)-1
+		for j := start; j >= 0; j-- {
 			d := fi - float64(j)
 			cd := c * d * d
 			if j <= i && pre[j]-cd-best < -drop {
@@ -182,16 +194,39 @@ func lseLine(out, h []float64, c, drop float64, s *lseScratch, rec *windows) {
 			if x := max(i+j-js, 0); env[x]-c*float64(x-i)*float64(2*j-x-i)-best < -drop {
 				break
 			}
-			ex[j] = ninf
-			if t := h[j] - cd - best; t > -drop {
-				ex[j] = t
+			if h[j]-cd-best > -drop {
 				lo = j
 			}
 		}
+		if lo < 0 {
+			lo = js
+			for j := start + 1; j < js; j++ {
+				if keep(j) {
+					lo = j
+					break
+				}
+			}
+		}
+		loPrev, hiPrev = lo, hi
 		if rec != nil && rec.blocked {
 			s.wlo[i], s.whi[i] = int32(lo), int32(hi) // the blocks follow
 			continue
 		}
+		// Each term's exponent (-Inf for a dropped one); the exps follow
+		// in one vector call (expShift): one expNeg per term was a third
+		// of a rebuild.
+		ex := s.ex[:n]
+		for j := lo; j <= hi; j++ {
+			d := float64(j) - fi
+			if j < i {
+				d = fi - float64(j)
+			}
+			ex[j] = ninf
+			if t := h[j] - c*d*d - best; t > -drop {
+				ex[j] = t
+			}
+		}
+		ex[js] = 0
 		win := ex[lo : hi+1]
 		// The exps run on whole groups of four where the line allows (a
 		// scalar tail of one to three expNeg calls per output was 2% of a
