@@ -84,6 +84,7 @@ func (r *windows) addBlocks(out, h []float64, c float64, s *lseScratch) {
 			r.addIrregular(offs, h, c, s, I)
 			continue
 		}
+		u0, u1 := J0, J1
 		J0 = min(J0, n-ep)
 		mid := float64(I) + 1.5
 		M := ninf
@@ -98,13 +99,14 @@ func (r *windows) addBlocks(out, h []float64, c float64, s *lseScratch) {
 				}
 			}
 		}
-		// The least exponent an output keeps (-Inf terms are not kept).
+		// The least exponent within the union of the outputs' windows
+		// (-Inf terms aside): the windows of a block overlap, and where
+		// they do not the terms between count too, which only sends more
+		// blocks to per-output windows.
 		least := M
-		for d := range nd {
-			for _, x := range tt[int(wlo[I+d])-J0 : int(whi[I+d])-J0+1] {
-				if x < least && x != ninf {
-					least = x
-				}
+		for _, x := range tt[u0-J0 : u1-J0] {
+			if x < least && x != ninf {
+				least = x
 			}
 		}
 		if M-least > hornerRange {
