@@ -25,7 +25,8 @@ import (
 // -Inf. TestAbsorbedKernel checks it against the full sum.
 //
 // The windows are the instance's memory (absorbBytes); plain balanced
-// solves keep them in single precision (see single). Balanced problems
+// solves keep them in single precision (see single), in blocks of four
+// outputs (horner.go). Balanced problems
 // with double-precision windows use a narrower pair, 40 and 4.5, with the
 // same exp(-22): windows of 13 instead of 15 weights at epsilon one
 // squared pixel, so that all 16 streams of 8 inputs of 512^2 fit the
