@@ -289,27 +289,9 @@ func (a *absKernel) apply(dst, src, x []float64) {
 	n := len(src)
 	ee, s1 := dst[:n], x[:n]
 	expShift(ee, src, a.ref, shift)
-	for b := range a.p1 {
-		l0, l1 := band(b, len(a.p1), k.rows)
-		for r := l0; r < l1; r++ {
-			if a.blocked {
-				hornerPass(s1[r*k.cols:], &a.p1[b], (r-l0)*((k.cols+3)/4), k.cols, ee[r*k.cols:(r+1)*k.cols])
-				continue
-			}
-			dotPass(s1[r*k.cols:], 1, &a.p1[b], (r-l0)*k.cols, k.cols, ee[r*k.cols:(r+1)*k.cols])
-		}
-	}
+	a.sums(s1, ee, a.p1, k.rows, k.cols)
 	transpose(dst, s1, k.rows, k.cols)
-	for b := range a.p2 {
-		l0, l1 := band(b, len(a.p2), k.cols)
-		for c := l0; c < l1; c++ {
-			if a.blocked {
-				hornerPass(x[c*k.rows:], &a.p2[b], (c-l0)*((k.rows+3)/4), k.rows, dst[c*k.rows:(c+1)*k.rows])
-				continue
-			}
-			dotPass(x[c*k.rows:], 1, &a.p2[b], (c-l0)*k.rows, k.rows, dst[c*k.rows:(c+1)*k.rows])
-		}
-	}
+	a.sums(x, dst, a.p2, k.cols, k.rows)
 	transpose(dst, x, k.cols, k.rows)
 	if a.fast {
 		logAdd(dst[:len(src)], a.out0, shift)
@@ -317,6 +299,22 @@ func (a *absKernel) apply(dst, src, x []float64) {
 	}
 	for i, s := range dst[:len(src)] {
 		dst[i] = a.out0[i] + shift + math.Log(s)
+	}
+}
+
+// sums writes one pass's window sums of in to out, line by line (lines of
+// length line, in the bands of ws).
+func (a *absKernel) sums(out, in []float64, ws []windows, lines, line int) {
+	for b := range ws {
+		l0, l1 := band(b, len(ws), lines)
+		for l := l0; l < l1; l++ {
+			o, x := out[l*line:(l+1)*line], in[l*line:(l+1)*line]
+			if a.blocked {
+				hornerPass(o, &ws[b], (l-l0)*((line+3)/4), line, x)
+				continue
+			}
+			dotPass(o, 1, &ws[b], (l-l0)*line, line, x)
+		}
 	}
 }
 

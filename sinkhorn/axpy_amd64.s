@@ -199,6 +199,18 @@ ctap:
 	VZEROUPPER
 	RET
 
+// TILE4 transposes the 4 x 4 tile in rows r0..r3 (a, b, c, d) in place by
+// two unpacks and a lane permute per pair, with t0..t3 as scratch.
+#define TILE4(r0, r1, r2, r3, t0, t1, t2, t3) \
+	VUNPCKLPD r1, r0, t0; \
+	VUNPCKHPD r1, r0, t1; \
+	VUNPCKLPD r3, r2, t2; \
+	VUNPCKHPD r3, r2, t3; \
+	VPERM2F128 $0x20, t2, t0, r0; \
+	VPERM2F128 $0x20, t3, t1, r1; \
+	VPERM2F128 $0x31, t2, t0, r2; \
+	VPERM2F128 $0x31, t3, t1, r3
+
 // func transpose8AVX(dst, src *float64, rows, cols, r4 int)
 // Transposes a strip of eight columns of src (rows x cols, row-major) into
 // eight rows of dst (cols x rows): dst[c*rows + i] = src[i*cols + c] for
@@ -225,22 +237,8 @@ t8loop:
 	VMOVUPD 32(SI)(R9*1), Y9
 	VMOVUPD 32(SI)(R9*2), Y10
 	VMOVUPD 32(SI)(R10*1), Y11
-	VUNPCKLPD Y1, Y0, Y4
-	VUNPCKHPD Y1, Y0, Y5
-	VUNPCKLPD Y3, Y2, Y6
-	VUNPCKHPD Y3, Y2, Y7
-	VPERM2F128 $0x20, Y6, Y4, Y0
-	VPERM2F128 $0x20, Y7, Y5, Y1
-	VPERM2F128 $0x31, Y6, Y4, Y2
-	VPERM2F128 $0x31, Y7, Y5, Y3
-	VUNPCKLPD Y9, Y8, Y12
-	VUNPCKHPD Y9, Y8, Y13
-	VUNPCKLPD Y11, Y10, Y14
-	VUNPCKHPD Y11, Y10, Y15
-	VPERM2F128 $0x20, Y14, Y12, Y8
-	VPERM2F128 $0x20, Y15, Y13, Y9
-	VPERM2F128 $0x31, Y14, Y12, Y10
-	VPERM2F128 $0x31, Y15, Y13, Y11
+	TILE4(Y0, Y1, Y2, Y3, Y4, Y5, Y6, Y7)
+	TILE4(Y8, Y9, Y10, Y11, Y12, Y13, Y14, Y15)
 	VMOVUPD Y0, (DI)
 	VMOVUPD Y1, (DI)(R8*1)
 	VMOVUPD Y2, (DI)(R8*2)
