@@ -64,22 +64,19 @@ type windows struct {
 	// With blocked set (single precision only) lseLine records blocks
 	// instead (see horner.go): per block of four outputs its first input
 	// j0, its coefficients a[aoff[b]:aoff[b+1]], and per output nrm. A
-	// block that does not fit keeps per-output windows in xlo, xoff, xw
-	// and j0 = -1 - its first entry there. hp holds hornerPowers (shared
-	// by the bands of a pass).
-	blocked   bool
-	j0, aoff  []int32
-	a         []float32
-	nrm       []float64
-	xlo, xoff []int32
-	xw        []float32
-	hp        []float64
+	// block that does not fit keeps per-output windows in lo, off and w32
+	// as above, and j0 = -1 - its first output there. hp holds
+	// hornerPowers (shared by the bands of a pass).
+	blocked  bool
+	j0, aoff []int32
+	a        []float32
+	nrm      []float64
+	hp       []float64
 }
 
 func (r *windows) reset() {
 	r.lo, r.off, r.w, r.w32 = r.lo[:0], append(r.off[:0], 0), r.w[:0], r.w32[:0]
 	r.j0, r.aoff, r.a, r.nrm = r.j0[:0], append(r.aoff[:0], 0), r.a[:0], r.nrm[:0]
-	r.xlo, r.xoff, r.xw = r.xlo[:0], append(r.xoff[:0], 0), r.xw[:0]
 }
 
 // addScaled closes the next output's window: weights x[j] * inv for

@@ -89,18 +89,8 @@ func (r *windows) addBlocks(out, h []float64, c float64, s *lseScratch) {
 		u0, u1 := J0, J1
 		J0 = min(J0, n-ep)
 		mid := float64(I) + 1.5
-		M := ninf
 		tt := s.pre[:ep]
-		for k := range tt {
-			tt[k] = ninf
-			if hj := h[J0+k]; hj != ninf {
-				y := mid - float64(J0+k)
-				tt[k] = hj - c*y*y
-				if tt[k] > M {
-					M = tt[k]
-				}
-			}
-		}
+		M := exponents(tt, h[J0:], mid-float64(J0), c)
 		// The least exponent within the union of the outputs' windows
 		// (-Inf terms aside): the windows of a block overlap, and where
 		// they do not the terms between count too, which only sends more
@@ -149,45 +139,44 @@ func (r *windows) addBlocks(out, h []float64, c float64, s *lseScratch) {
 	logAdd(out, offs, 0)
 }
 
-// addIrregular records the block of outputs I.. as per-output windows of
-// weights exp(h_j - c (i - j)^2 - offs_i), offs_i the output's largest
-// exponent.
+// addIrregular records the block of outputs I.. as per-output windows
+// (lo, off, w32) of weights exp(h_j - c (i - j)^2 - offs_i), offs_i the
+// output's largest exponent, and the block's j0 as -1 - its first output
+// there.
 func (r *windows) addIrregular(offs, h []float64, c float64, s *lseScratch, I int) {
 	n := len(h)
-	ninf := math.Inf(-1)
-	r.j0 = append(r.j0, int32(-1-len(r.xlo)))
+	r.j0 = append(r.j0, int32(-1-len(r.lo)))
 	r.aoff = append(r.aoff, int32(len(r.a)))
 	for d := range 4 {
 		i := I + d
 		if i >= n {
 			r.nrm = append(r.nrm, 0)
-			r.xlo = append(r.xlo, 0)
-			r.xoff = append(r.xoff, int32(len(r.xw)))
+			r.addScaled(0, nil, 1)
 			continue
 		}
 		r.nrm = append(r.nrm, 1)
 		lo, hi := int(s.wlo[i]), int(s.whi[i])
-		tt := s.pre[:hi-lo+1]
-		best := ninf
-		for k := range tt {
-			tt[k] = ninf
-			if hj := h[lo+k]; hj != ninf {
-				y := float64(i - lo - k)
-				tt[k] = hj - c*y*y
-				best = max(best, tt[k])
-			}
-		}
-		ee := s.ex[:len(tt)]
-		expShift(ee, tt, s.zero[:len(tt)], best)
-		offs[i] = best
-		r.xlo = append(r.xlo, int32(lo))
-		n0 := len(r.xw)
-		r.xw = slices.Grow(r.xw, len(ee))[:n0+len(ee)]
-		for k, x := range ee {
-			r.xw[n0+k] = float32(x)
-		}
-		r.xoff = append(r.xoff, int32(len(r.xw)))
+		tt, ee := s.pre[:hi-lo+1], s.ex[:hi-lo+1]
+		offs[i] = exponents(tt, h[lo:], float64(i-lo), c)
+		expShift(ee, tt, s.zero[:len(tt)], offs[i])
+		r.addScaled(lo, ee, 1)
 	}
+}
+
+// exponents writes t[k] = h[k] - c (center - k)^2 (-Inf where h is) and
+// returns the largest.
+func exponents(t, h []float64, center, c float64) float64 {
+	ninf := math.Inf(-1)
+	m := ninf
+	for k := range t {
+		t[k] = ninf
+		if h[k] != ninf {
+			y := center - float64(k)
+			t[k] = h[k] - c*y*y
+			m = max(m, t[k])
+		}
+	}
+	return m
 }
 
 // addEmptyBlocks records the blocks of a line without finite inputs: no
@@ -225,8 +214,8 @@ func hornerBlockGo(out []float64, r *windows, b, I, n int, x []float64) {
 	if r.j0[b] < 0 {
 		q := int(-1 - r.j0[b])
 		for d := 0; d < min(4, n-I); d++ {
-			w := r.xw[r.xoff[q+d]:r.xoff[q+d+1]]
-			out[I+d] = r.nrm[4*b+d] * dotWindow(w, x[r.xlo[q+d]:])
+			w := r.w32[r.off[q+d]:r.off[q+d+1]]
+			out[I+d] = r.nrm[4*b+d] * dotWindow(w, x[r.lo[q+d]:])
 		}
 		return
 	}

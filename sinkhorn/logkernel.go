@@ -146,9 +146,9 @@ func lseLine(out, h []float64, c, drop float64, s *lseScratch, rec *windows) {
 	for i := 0; i < n; i++ {
 		js, best := jstar[i], env[i]
 		fi := float64(i)
-		keep := func(j int) bool { // the term is within the drop
+		term := func(j int) float64 { // the term's exponent, relative to the largest
 			d := float64(j) - fi
-			return h[j]-c*d*d-best > -drop
+			return h[j] - c*d*d - best
 		}
 		// Right of j*: once past i the distance only grows, so suf bounds
 		// everything further out. So does the envelope, much closer: for
@@ -183,7 +183,7 @@ func lseLine(out, h []float64, c, drop float64, s *lseScratch, rec *windows) {
 		if hi < 0 {
 			hi = js
 			for j := start - 1; j > js; j-- {
-				if keep(j) {
+				if term(j) > -drop {
 					hi = j
 					break
 				}
@@ -206,7 +206,7 @@ func lseLine(out, h []float64, c, drop float64, s *lseScratch, rec *windows) {
 		if lo < 0 {
 			lo = js
 			for j := start + 1; j < js; j++ {
-				if keep(j) {
+				if term(j) > -drop {
 					lo = j
 					break
 				}
@@ -222,12 +222,8 @@ func lseLine(out, h []float64, c, drop float64, s *lseScratch, rec *windows) {
 		// of a rebuild.
 		ex := s.ex[:n]
 		for j := lo; j <= hi; j++ {
-			d := float64(j) - fi
-			if j < i {
-				d = fi - float64(j)
-			}
 			ex[j] = ninf
-			if t := h[j] - c*d*d - best; t > -drop {
+			if t := term(j); t > -drop {
 				ex[j] = t
 			}
 		}
