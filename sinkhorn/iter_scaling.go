@@ -40,8 +40,15 @@ type scalingIter struct {
 	checks       []float64   // per input: truncation error, untruncated residual
 	dres, deq    float64
 	bad          []string
-	smooth       *dSmoother
-	lbuf, zero   []float64 // log b before its exp; zeros (one chunk)
+	inRng        []bool // per input: step's strict range check passed
+	// tr: u and K v are kept transposed (cols x rows), where the kernel
+	// would transpose for its pass along x anyway, so that each
+	// application takes one transpose instead of two; au holds the inputs
+	// in u's layout (lv.a itself when not tr).
+	tr         bool
+	au         [][]float64
+	smooth     *dSmoother
+	lbuf, zero []float64 // log b before its exp; zeros (one chunk)
 }
 
 // newScalingIter starts from the potentials, or returns nil when they do not
@@ -100,9 +107,55 @@ func newScalingIter(p *problem, lv *level, eps float64, pot *potentials) *scalin
 	}
 	st.resid = make([]float64, K)
 	st.bad = make([]string, K)
+	st.inRng = make([]bool, K)
 	st.mode = newMassMode(p)
-	parallel.For(K, p.workers, func(k int) { st.k.Apply(st.kv[k], st.v[k], st.tmp[k]) })
+	st.tr = st.k.transposes()
+	st.au = lv.a
+	if st.tr {
+		st.au = make([][]float64, K)
+		for k := range K {
+			st.au[k] = alloc()
+			transpose(st.au[k], lv.a[k], lv.rows, lv.cols)
+		}
+	}
+	parallel.For(K, p.workers, func(k int) { st.applyV(st.k, st.kv[k], st.v[k], st.tmp[k]) })
 	return st
+}
+
+// applyV writes K v (v row-major) to dst in u's layout; applyU writes K u
+// (u in its layout) to a row-major dst.
+func (st *scalingIter) applyV(k *bandKernel, dst, v, tmp []float64) {
+	if st.tr {
+		k.applyNT(dst, v, tmp)
+	} else {
+		k.Apply(dst, v, tmp)
+	}
+}
+
+func (st *scalingIter) applyU(k *bandKernel, dst, u, tmp []float64) {
+	if st.tr {
+		k.applyTN(dst, u, tmp)
+	} else {
+		k.Apply(dst, u, tmp)
+	}
+}
+
+// rowMajor returns x (in u's layout) row-major.
+func (st *scalingIter) rowMajor(x []float64) []float64 {
+	if !st.tr {
+		return x
+	}
+	out := make([]float64, len(x))
+	transpose(out, x, st.lv.cols, st.lv.rows)
+	return out
+}
+
+// pixel names index i of an array in u's layout (uSide) or row-major.
+func (st *scalingIter) pixel(i int, uSide bool) (row, col int) {
+	if uSide && st.tr {
+		return i % st.lv.rows, i / st.lv.rows
+	}
+	return i / st.lv.cols, i % st.lv.cols
 }
 
 func (st *scalingIter) method() Method          { return MethodScaling }
@@ -113,7 +166,7 @@ func (st *scalingIter) debiasEquation() float64 { return st.deq }
 func (st *scalingIter) logB() []float64 { return logOf(st.b) }
 
 func (st *scalingIter) duals() (F, G, LKv, LKu []float64) {
-	return logOf(st.u[0]), logOf(st.v[0]), logOf(st.kv[0]), logOf(st.ku[0])
+	return logOf(st.rowMajor(st.u[0])), logOf(st.v[0]), logOf(st.rowMajor(st.kv[0])), logOf(st.ku[0])
 }
 
 func (st *scalingIter) state() *potentials {
@@ -162,7 +215,7 @@ func (st *scalingIter) step(omega float64) float64 {
 	K := len(lv.a)
 	lam := st.lam
 	parallel.For(K, p.workers, func(k int) {
-		u, a, kv := st.u[k], lv.a[k], st.kv[k]
+		u, a, kv := st.u[k], st.au[k], st.kv[k]
 		if lam == 1 {
 			relaxDiv(u, a, kv, a, omega)
 		} else {
@@ -174,7 +227,7 @@ func (st *scalingIter) step(omega float64) float64 {
 				u[i] = relax(u[i], t, omega)
 			}
 		}
-		st.k.Apply(st.ku[k], u, st.tmp[k])
+		st.applyU(st.k, st.ku[k], u, st.tmp[k])
 	})
 	// b pixel by pixel in a fixed order of k, so that the result does not
 	// depend on the number of workers.
@@ -264,12 +317,19 @@ func (st *scalingIter) step(omega float64) float64 {
 			}
 		}
 		kv := st.kv[k]
-		st.k.Apply(kv, v, st.tmp[k])
+		st.applyV(st.k, kv, v, st.tmp[k])
+		// health's strict check, here while kv is fresh in the cache and
+		// without a pass of its own over five arrays per input.
+		b := st.b
+		if lv.target != nil {
+			b = lv.target
+		}
+		st.inRng[k] = inRange(st.au[k], kv, st.u[k], b, v, tiny, huge)
 		if lam == 1 {
-			st.resid[k] = productL1(st.u[k], kv, lv.a[k]) / lv.mass[k]
+			st.resid[k] = productL1(st.u[k], kv, st.au[k]) / lv.mass[k]
 		} else {
 			var vi violation
-			for i, a := range lv.a[k] {
+			for i, a := range st.au[k] {
 				if a > 0 {
 					// u = (a / K v)^lambda: u K v = a^lambda (K v)^(1 - lambda).
 					a = math.Pow(a, lam) * math.Pow(kv[i], 1-lam)
@@ -312,6 +372,10 @@ func (st *scalingIter) debias() {
 // strict unset only values that are lost (zero, infinite, NaN) count.
 func (st *scalingIter) health(strict bool) string {
 	lv := st.lv
+	// The strict range implies the loose one; step checked it per input.
+	if !slices.Contains(st.inRng, false) {
+		return ""
+	}
 	lo, hi := tiny, huge
 	if !strict {
 		lo, hi = 0, math.MaxFloat64
@@ -323,27 +387,36 @@ func (st *scalingIter) health(strict bool) string {
 		if lv.target != nil {
 			b = lv.target
 		}
-		if inRange(lv.a[k], kv, u, b, v, lo, hi) {
+		if inRange(st.au[k], kv, u, b, v, lo, hi) {
 			return
 		}
-		for i, a := range lv.a[k] {
+		// u and K v are in u's layout, b and v row-major (see tr).
+		for i, a := range st.au[k] {
+			r, c := st.pixel(i, true)
 			if a > 0 && !(kv[i] > lo) {
-				st.bad[k] = fmt.Sprintf("K v underflows (%.3g) at row %d, column %d of input %d", kv[i], i/lv.cols, i%lv.cols, k+1)
+				st.bad[k] = fmt.Sprintf("K v underflows (%.3g) at row %d, column %d of input %d", kv[i], r, c, k+1)
 				return
 			}
 			// A pixel with mass needs its scalings: one that underflowed to
 			// zero (an over-relaxed step on a pixel of tiny mass) made a
 			// transport's dual value -Inf (measured).
 			if a > 0 && !(u[i] > lo) {
-				st.bad[k] = fmt.Sprintf("u underflows (%.3g) at row %d, column %d of input %d", u[i], i/lv.cols, i%lv.cols, k+1)
+				st.bad[k] = fmt.Sprintf("u underflows (%.3g) at row %d, column %d of input %d", u[i], r, c, k+1)
 				return
 			}
-			if b != nil && b[i] > 0 && !(v[i] > lo) {
-				st.bad[k] = fmt.Sprintf("v underflows (%.3g) at row %d, column %d of input %d", v[i], i/lv.cols, i%lv.cols, k+1)
+			if !(u[i] <= hi) {
+				st.bad[k] = fmt.Sprintf("scalings overflow at row %d, column %d of input %d", r, c, k+1)
 				return
 			}
-			if !(u[i] <= hi) || !(v[i] <= hi) {
-				st.bad[k] = fmt.Sprintf("scalings overflow at row %d, column %d of input %d", i/lv.cols, i%lv.cols, k+1)
+		}
+		for i, x := range v {
+			r, c := st.pixel(i, false)
+			if b != nil && b[i] > 0 && !(x > lo) {
+				st.bad[k] = fmt.Sprintf("v underflows (%.3g) at row %d, column %d of input %d", x, r, c, k+1)
+				return
+			}
+			if !(x <= hi) {
+				st.bad[k] = fmt.Sprintf("scalings overflow at row %d, column %d of input %d", r, c, k+1)
 				return
 			}
 		}
@@ -380,12 +453,12 @@ func (st *scalingIter) verify(r, tol float64) (float64, bool) {
 	full, e := st.full, st.checks
 	parallel.For(K, st.p.workers, func(k int) {
 		buf := st.fullBuf[k]
-		full.Apply(buf, st.v[k], st.tmp[k])
+		st.applyV(full, buf, st.v[k], st.tmp[k])
 		var rv violation
 		for i, x := range buf {
-			rv.add(st.u[k][i]*x, lv.a[k][i])
+			rv.add(st.u[k][i]*x, st.au[k][i])
 		}
-		full.Apply(buf, st.u[k], st.tmp[k])
+		st.applyU(full, buf, st.u[k], st.tmp[k])
 		var e2 float64
 		for i, x := range buf {
 			e2 += st.v[k][i] * math.Abs(x-st.ku[k][i])
@@ -414,5 +487,5 @@ func (st *scalingIter) widen() {
 		c = 0
 	}
 	st.k = newBandKernel(lv.rows, lv.cols, lv.dx, lv.dy, st.eps, c)
-	parallel.For(len(lv.a), st.p.workers, func(k int) { st.k.Apply(st.kv[k], st.v[k], st.tmp[k]) })
+	parallel.For(len(lv.a), st.p.workers, func(k int) { st.applyV(st.k, st.kv[k], st.v[k], st.tmp[k]) })
 }

@@ -103,6 +103,28 @@ func (k *bandKernel) Apply(dst, src, tmp []float64) {
 	transpose(dst, tmp, k.Cols, k.Rows)
 }
 
+// transposes reports whether Apply transposes for its pass along x.
+func (k *bandKernel) transposes() bool {
+	return !(useAVX && k.Cols >= 32 && k.rx <= conv1dReach)
+}
+
+// applyNT is Apply with dst left transposed (cols x rows), and applyTN is
+// Apply from a transposed src to a row-major dst: one transpose each
+// instead of Apply's two. An iteration that keeps one side's scalings
+// transposed (scalingIter.tr) takes them. applyNT's sums run as Apply's;
+// applyTN's run along x first.
+func (k *bandKernel) applyNT(dst, src, tmp []float64) {
+	bandPass(dst, src, k.Rows, k.Cols, k.ky, k.py, k.ry)
+	transpose(tmp, dst, k.Rows, k.Cols)
+	bandPass(dst, tmp, k.Cols, k.Rows, k.kx, k.px, k.rx)
+}
+
+func (k *bandKernel) applyTN(dst, src, tmp []float64) {
+	bandPass(dst, src, k.Cols, k.Rows, k.kx, k.px, k.rx)
+	transpose(tmp, dst, k.Cols, k.Rows)
+	bandPass(dst, tmp, k.Rows, k.Cols, k.ky, k.py, k.ry)
+}
+
 // conv1dReach is the widest band (taps on either side) that the x pass
 // takes by conv1d; wider ones transpose and take bandPass, whose input
 // loads are aligned and serve four outputs each (conv1d's unaligned loads

@@ -446,3 +446,37 @@ func TestBandPassDefinition(t *testing.T) {
 		}
 	}
 }
+
+// The transposed applications (one transpose each) must give Apply's
+// values, which TestSeparableEqualsDense checks against the dense kernel:
+// applyNT in the transposed layout, applyTN from it. Shapes include
+// non-square ones, where a mixed-up side would show.
+func TestApplyTransposed(t *testing.T) {
+	rng := rand.New(rand.NewPCG(5, 6))
+	for _, sh := range [][2]int{{5, 7}, {16, 20}, {37, 70}, {64, 33}} {
+		rows, cols := sh[0], sh[1]
+		for _, eps := range []float64{1, 16} {
+			k := newBandKernel(rows, cols, 1, 1.5, eps, initialCutoff)
+			n := rows * cols
+			src, want, got, tmp, srcT, wantT := make([]float64, n), make([]float64, n), make([]float64, n), make([]float64, n), make([]float64, n), make([]float64, n)
+			for i := range src {
+				src[i] = math.Exp(20 * rng.Float64())
+			}
+			k.Apply(want, src, tmp)
+			transpose(wantT, want, rows, cols)
+			k.applyNT(got, src, tmp)
+			for i := range got {
+				if math.Abs(got[i]-wantT[i]) > 1e-14*wantT[i] {
+					t.Fatalf("%dx%d eps %g: applyNT[%d] = %g, want %g", rows, cols, eps, i, got[i], wantT[i])
+				}
+			}
+			transpose(srcT, src, rows, cols)
+			k.applyTN(got, srcT, tmp)
+			for i := range got {
+				if math.Abs(got[i]-want[i]) > 1e-14*want[i] {
+					t.Fatalf("%dx%d eps %g: applyTN[%d] = %g, want %g", rows, cols, eps, i, got[i], want[i])
+				}
+			}
+		}
+	}
+}
