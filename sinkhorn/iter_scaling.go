@@ -270,7 +270,10 @@ func (st *scalingIter) step(omega float64) float64 {
 	if st.mode != nil {
 		bmax = slices.Max(st.b)
 	}
-	parallel.For(K, p.workers, func(k int) {
+	// v_k, then K v_k and the residual of input k. Without the mass mode
+	// the two need no barrier between them, so they run as one task per
+	// input (and the debiasing field's update as one more).
+	vUpdate := func(k int) {
 		v, ku := st.v[k], st.ku[k]
 		if lam == 1 && bmax == 0 {
 			relaxDiv(v, st.b, ku, ku, omega)
@@ -296,15 +299,8 @@ func (st *scalingIter) step(omega float64) float64 {
 		if bmax > 0 {
 			st.mode.delta[k] = d / ws
 		}
-	})
-	shifts := st.mode.shifts(lam, omega)
-	parallel.For(K+1, p.workers, func(k int) {
-		if k == K {
-			if st.d != nil {
-				st.debias()
-			}
-			return
-		}
+	}
+	finish := func(k int, shifts []float64) {
 		v := st.v[k]
 		if shifts != nil {
 			// Move v_k along the mode, and u_k as its update would follow
@@ -338,7 +334,31 @@ func (st *scalingIter) step(omega float64) float64 {
 			}
 			st.resid[k] = vi.value(lv.mass[k])
 		}
-	})
+	}
+	if st.mode == nil {
+		parallel.For(K+1, p.workers, func(k int) {
+			if k == K {
+				if st.d != nil {
+					st.debias()
+				}
+				return
+			}
+			vUpdate(k)
+			finish(k, nil)
+		})
+	} else {
+		parallel.For(K, p.workers, vUpdate)
+		shifts := st.mode.shifts(lam, omega)
+		parallel.For(K+1, p.workers, func(k int) {
+			if k == K {
+				if st.d != nil {
+					st.debias()
+				}
+				return
+			}
+			finish(k, shifts)
+		})
+	}
 	r := slices.Max(st.resid)
 	if st.mode != nil {
 		r += st.mode.dist
