@@ -335,30 +335,23 @@ func (st *scalingIter) step(omega float64) float64 {
 			st.resid[k] = vi.value(lv.mass[k])
 		}
 	}
-	if st.mode == nil {
-		parallel.For(K+1, p.workers, func(k int) {
-			if k == K {
-				if st.d != nil {
-					st.debias()
-				}
-				return
-			}
-			vUpdate(k)
-			finish(k, nil)
-		})
-	} else {
+	var shifts []float64
+	if st.mode != nil {
 		parallel.For(K, p.workers, vUpdate)
-		shifts := st.mode.shifts(lam, omega)
-		parallel.For(K+1, p.workers, func(k int) {
-			if k == K {
-				if st.d != nil {
-					st.debias()
-				}
-				return
-			}
-			finish(k, shifts)
-		})
+		shifts = st.mode.shifts(lam, omega)
 	}
+	parallel.For(K+1, p.workers, func(k int) {
+		if k == K {
+			if st.d != nil {
+				st.debias()
+			}
+			return
+		}
+		if st.mode == nil {
+			vUpdate(k)
+		}
+		finish(k, shifts)
+	})
 	r := slices.Max(st.resid)
 	if st.mode != nil {
 		r += st.mode.dist
