@@ -35,6 +35,7 @@ ap.add_argument("--inner", type=int, default=10); ap.add_argument("--plain", act
 ap.add_argument("--rebuild", type=int, default=1, help="rebuild the preconditioner every N Newton steps")
 ap.add_argument("--tol", type=float, default=1e-6)
 ap.add_argument("--smooth", action="store_true", help="a plain sweep after each Newton step")
+ap.add_argument("--safeguard", action="store_true", help="backtrack on the residual, fall back to plain sweeps")
 ap.add_argument("--sor", type=float, default=0, help="instead of Newton: sweeps over-relaxed by this fixed factor (f and g), the baseline")
 args = ap.parse_args()
 A = np.stack([np.load(f) for f in sorted(glob.glob(args.dir + "/field_*.npy"))]).astype(float)
@@ -156,9 +157,9 @@ if args.sor:
     print(f"{H}x{W}, eps {EPS}: {sweeps} sweeps to residual {r:.3g} (over-relaxed, factor {args.sor})")
     sys.exit(0)
 P = None
+gn, f = Phi(g, EPS)
+r = resid(f, gn, EPS)
 for step in range(200):
-    gn, f = Phi(g, EPS)
-    r = resid(f, gn, EPS)
     print(f"Newton step {step}: {sweeps} sweeps, residual {r:.3g}", flush=True)
     if r <= args.tol:
         break
@@ -167,7 +168,26 @@ for step in range(200):
     elif P is None or step % args.rebuild == 0:
         P = precond(g, EPS)
     Av = lambda v: v - (Phi(g + 1e-5 / np.abs(v).max() * v.reshape(g.shape), EPS)[0] - gn).ravel() * np.abs(v).max() / 1e-5
-    g = g + gmres(Av, (gn - g).ravel(), P, args.inner).reshape(g.shape)
-    if args.smooth:
-        g, _ = Phi(g, EPS)
+    d = gmres(Av, (gn - g).ravel(), P, args.inner).reshape(g.shape)
+    if not args.safeguard:
+        g = g + d
+        if args.smooth:
+            g, _ = Phi(g, EPS)
+        gn, f = Phi(g, EPS)
+        r = resid(f, gn, EPS)
+        continue
+    # Safeguard: accept the step, or a half or a quarter of it, only where
+    # the residual falls; else take 10 plain sweeps from where we were.
+    for t in (1, 0.5, 0.25):
+        gt = g + t * d
+        gnt, ft = Phi(gt, EPS)
+        rt = resid(ft, gnt, EPS)
+        if rt < r:
+            g, gn, f, r = gt, gnt, ft, rt
+            break
+    else:
+        for _ in range(10):
+            g = gn
+            gn, f = Phi(g, EPS)
+        r = resid(f, gn, EPS)
 print(f"{H}x{W}, eps {EPS}: {sweeps} sweeps to residual {r:.3g}", "(plain Newton-GMRES)" if args.plain else "(preconditioned)")
