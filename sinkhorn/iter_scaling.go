@@ -140,6 +140,15 @@ func (st *scalingIter) applyU(k *bandKernel, dst, u, tmp []float64) {
 	}
 }
 
+// second is the second marginal the scalings answer to: the fixed target
+// of a transport, else the barycenter.
+func (st *scalingIter) second() []float64 {
+	if st.lv.target != nil {
+		return st.lv.target
+	}
+	return st.b
+}
+
 // rowMajor returns x (in u's layout) row-major.
 func (st *scalingIter) rowMajor(x []float64) []float64 {
 	if !st.tr {
@@ -316,11 +325,7 @@ func (st *scalingIter) step(omega float64) float64 {
 		st.applyV(st.k, kv, v, st.tmp[k])
 		// health's strict check, here while kv is fresh in the cache and
 		// without a pass of its own over five arrays per input.
-		b := st.b
-		if lv.target != nil {
-			b = lv.target
-		}
-		st.inRng[k] = inRange(st.au[k], kv, st.u[k], b, v, tiny, huge)
+		st.inRng[k] = inRange(st.au[k], kv, st.u[k], st.second(), v, tiny, huge)
 		if lam == 1 {
 			st.resid[k] = productL1(st.u[k], kv, st.au[k]) / lv.mass[k]
 		} else {
@@ -396,10 +401,7 @@ func (st *scalingIter) health(strict bool) string {
 	parallel.For(len(lv.a), st.p.workers, func(k int) {
 		st.bad[k] = ""
 		u, v, kv := st.u[k], st.v[k], st.kv[k]
-		b := st.b
-		if lv.target != nil {
-			b = lv.target
-		}
+		b := st.second()
 		if inRange(st.au[k], kv, u, b, v, lo, hi) {
 			return
 		}
