@@ -20,7 +20,8 @@ Method (see DEVELOPERS.md, round of 2026-12-02 late night, item (d)):
     the rough errors. Without the preconditioner (--plain) it is plain
     Newton-GMRES.
 
-Usage: newton_sweeps.py DIR [--eps 1] [--inner 10] [--plain] [--rebuild N] [--smooth] [--sor OMEGA]
+Usage: newton_sweeps.py DIR [--eps 1] [--inner 10] [--plain] [--rebuild N] [--smooth]
+       [--decoupled [--cgtol T]] [--sor OMEGA]
 DIR holds field_*.npy (../shared/bench/make_fields.py --k 8 --size 32|64).
 Slow above 64 x 64 (dense log-sum-exp).
 """
@@ -36,6 +37,8 @@ ap.add_argument("--rebuild", type=int, default=1, help="rebuild the precondition
 ap.add_argument("--tol", type=float, default=1e-6)
 ap.add_argument("--smooth", action="store_true", help="a plain sweep after each Newton step")
 ap.add_argument("--safeguard", action="store_true", help="backtrack on the residual, fall back to plain sweeps")
+ap.add_argument("--decoupled", action="store_true", help="per-input Laplacians on b (r_k - rbar), then the projection onto sum_k w_k d_k = 0")
+ap.add_argument("--cgtol", type=float, default=0, help="with --decoupled: inner CG solves to this relative tolerance instead of exact ones")
 ap.add_argument("--sor", type=float, default=0, help="instead of Newton: sweeps over-relaxed by this fixed factor (f and g), the baseline")
 args = ap.parse_args()
 A = np.stack([np.load(f) for f in sorted(glob.glob(args.dir + "/field_*.npy"))]).astype(float)
@@ -122,6 +125,29 @@ def precond(g, eps):
         blocks[k][k] = lap(bf, *S) + 1e-9 * sp.identity(n)
         blocks[k][K] = -sp.diags(bf.ravel())
         blocks[K][k] = w[k] * sp.identity(n)
+    if args.decoupled:
+        Ls = [blocks[k][k] for k in range(K)]
+        sols = [spl.factorized(L) for L in Ls]
+
+        def cg(L, rhs):
+            try:
+                return spl.cg(L, rhs, rtol=args.cgtol, atol=0, maxiter=5000)[0]
+            except TypeError:  # SciPy before 1.12
+                return spl.cg(L, rhs, tol=args.cgtol, atol=0, maxiter=5000)[0]
+
+        def Pd(r):
+            r = r.reshape(K, H, W)
+            rb = np.tensordot(w, r, 1)
+            d = []
+            for k in range(K):
+                rhs = (bf * (r[k] - rb)).ravel()
+                rhs -= rhs.mean()  # Neumann: constants are the gauge
+                x = cg(Ls[k], rhs) if args.cgtol else sols[k](rhs)
+                d.append(x - x.mean())
+            d = np.array(d)
+            d -= np.tensordot(w, d, 1)[None]
+            return d.ravel() + r.ravel()
+        return Pd
     blocks[K][K] = 1e-12 * sp.identity(n)
     solve = spl.factorized(sp.bmat(blocks, format="csc"))
 
