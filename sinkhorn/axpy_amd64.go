@@ -60,8 +60,18 @@ func axpyPair1(out []float64, w float64, a, b []float64) {
 //go:noescape
 func band4AVX(out, src *float64, stride, cols int, w *float64, nj int)
 
+//go:noescape
+func band4Z(out, src *float64, stride, cols int, w *float64, nj int)
+
+// useAVX512 takes band4's 512-bit form: on a machine with AVX-512 the
+// numpy peer's matrix products use it, and the banded passes are most of a
+// solve at large epsilon.
+var useAVX512 = useAVX && cpu.X86.HasAVX512F
+
 // band4 writes four rows of a banded pass (see bandPass) over the first
-// cols columns, a multiple of 8, and reports whether it could.
+// cols columns, a multiple of 8, and reports whether it could. The sums of
+// each output are the same fused multiply-adds in the same order in either
+// form, so the result does not depend on which one ran.
 func band4(out, src []float64, stride, cols int, wp []float64, wi, nj int) bool {
 	if !useAVX {
 		return false
@@ -70,7 +80,14 @@ func band4(out, src []float64, stride, cols int, wp []float64, wi, nj int) bool 
 	_ = src[(nj-1)*stride+cols-1]
 	_ = wp[wi-3]
 	_ = wp[wi+nj-1]
-	band4AVX(&out[0], &src[0], stride, cols, &wp[wi], nj)
+	c := 0
+	if useAVX512 && cols >= 16 {
+		c = cols &^ 15
+		band4Z(&out[0], &src[0], stride, c, &wp[wi], nj)
+	}
+	if c < cols {
+		band4AVX(&out[c], &src[c], stride, cols-c, &wp[wi], nj)
+	}
 	return true
 }
 

@@ -148,6 +148,66 @@ rowloop:
 	VZEROUPPER
 	RET
 
+// func band4Z(out, src *float64, stride, cols int, w *float64, nj int)
+// band4AVX with 512-bit registers: sixteen columns at a time, the same
+// fused multiply-adds in the same order per output (so the same bits).
+TEXT ·band4Z(SB), NOSPLIT, $0-48
+	MOVQ out+0(FP), DI
+	MOVQ src+8(FP), SI
+	MOVQ stride+16(FP), R8
+	SHLQ $3, R8
+	MOVQ cols+24(FP), CX
+	MOVQ w+32(FP), R9
+	MOVQ nj+40(FP), R10
+zcolloop:
+	VPXORQ Z0, Z0, Z0
+	VPXORQ Z1, Z1, Z1
+	VPXORQ Z2, Z2, Z2
+	VPXORQ Z3, Z3, Z3
+	VPXORQ Z4, Z4, Z4
+	VPXORQ Z5, Z5, Z5
+	VPXORQ Z6, Z6, Z6
+	VPXORQ Z7, Z7, Z7
+	MOVQ SI, R11
+	MOVQ R9, R12
+	MOVQ R10, BX
+zrowloop:
+	VMOVUPD (R11), Z8
+	VMOVUPD 64(R11), Z9
+	VBROADCASTSD (R12), Z10
+	VFMADD231PD Z8, Z10, Z0
+	VFMADD231PD Z9, Z10, Z1
+	VBROADCASTSD -8(R12), Z11
+	VFMADD231PD Z8, Z11, Z2
+	VFMADD231PD Z9, Z11, Z3
+	VBROADCASTSD -16(R12), Z12
+	VFMADD231PD Z8, Z12, Z4
+	VFMADD231PD Z9, Z12, Z5
+	VBROADCASTSD -24(R12), Z13
+	VFMADD231PD Z8, Z13, Z6
+	VFMADD231PD Z9, Z13, Z7
+	ADDQ R8, R11
+	ADDQ $8, R12
+	DECQ BX
+	JNZ zrowloop
+	VMOVUPD Z0, (DI)
+	VMOVUPD Z1, 64(DI)
+	LEAQ (DI)(R8*1), R13
+	VMOVUPD Z2, (R13)
+	VMOVUPD Z3, 64(R13)
+	ADDQ R8, R13
+	VMOVUPD Z4, (R13)
+	VMOVUPD Z5, 64(R13)
+	ADDQ R8, R13
+	VMOVUPD Z6, (R13)
+	VMOVUPD Z7, 64(R13)
+	ADDQ $128, DI
+	ADDQ $128, SI
+	SUBQ $16, CX
+	JG zcolloop
+	VZEROUPPER
+	RET
+
 // func conv1dAVX(out, in *float64, n int, w *float64, nt int)
 // A correlation along a line: out[c] = sum_{t < nt} w[t] * in[c+t] for
 // c < n, a positive multiple of 32. Thirty-two sums stay in registers while

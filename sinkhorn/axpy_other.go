@@ -31,3 +31,6 @@ func band4(out, src []float64, stride, cols int, wp []float64, wi, nj int) bool 
 func conv1d(out, in, w []float64) int { return 0 }
 
 func transpose(dst, src []float64, rows, cols int) { transposeGo(dst, src, rows, cols, 0, 0) }
+
+// useAVX512: band4's 512-bit form exists on amd64 only.
+var useAVX512 = false
