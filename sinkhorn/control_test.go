@@ -59,7 +59,7 @@ func TestRelaxationControl(t *testing.T) {
 // within 10x after a raise (measured at 512^2), but not a runaway: growth
 // by settleGrowth over the best residual backs the factor off at once (a
 // smoothed debiased solve of 8 make_fields inputs at 96^2 ran from 5.7e-6
-// to 1e+53 inside one window; full-grid iterations 1966 -> 996 with the
+// to 1e+53 inside one window; full-grid iterations 1966 -> 841 with the
 // guard). Fails without it: nothing happens for 100 steps.
 func TestRelaxationRunawayWhileSettling(t *testing.T) {
 	for _, c := range []struct {
