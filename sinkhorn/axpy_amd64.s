@@ -1,5 +1,67 @@
 #include "textflag.h"
 
+// BAND4 is the body of band4AVX and band4Z: ZERO clears a register, S0-S7
+// are the eight sums (two vectors per output row), L0 L1 the input row's
+// two vectors, B0-B3 the four taps broadcast, V the bytes of one vector
+// and C the columns of two. (Defined before the first TEXT, so that vet
+// does not take its argument names for another function's.)
+#define BAND4(ZERO, S0, S1, S2, S3, S4, S5, S6, S7, L0, L1, B0, B1, B2, B3, V, C) \
+	MOVQ out+0(FP), DI \
+	MOVQ src+8(FP), SI \
+	MOVQ stride+16(FP), R8 \
+	SHLQ $3, R8 \
+	MOVQ cols+24(FP), CX \
+	MOVQ w+32(FP), R9 \
+	MOVQ nj+40(FP), R10 \
+colloop: \
+	ZERO S0, S0, S0 \
+	ZERO S1, S1, S1 \
+	ZERO S2, S2, S2 \
+	ZERO S3, S3, S3 \
+	ZERO S4, S4, S4 \
+	ZERO S5, S5, S5 \
+	ZERO S6, S6, S6 \
+	ZERO S7, S7, S7 \
+	MOVQ SI, R11 \
+	MOVQ R9, R12 \
+	MOVQ R10, BX \
+rowloop: \
+	VMOVUPD (R11), L0 \
+	VMOVUPD V(R11), L1 \
+	VBROADCASTSD (R12), B0 \
+	VFMADD231PD L0, B0, S0 \
+	VFMADD231PD L1, B0, S1 \
+	VBROADCASTSD -8(R12), B1 \
+	VFMADD231PD L0, B1, S2 \
+	VFMADD231PD L1, B1, S3 \
+	VBROADCASTSD -16(R12), B2 \
+	VFMADD231PD L0, B2, S4 \
+	VFMADD231PD L1, B2, S5 \
+	VBROADCASTSD -24(R12), B3 \
+	VFMADD231PD L0, B3, S6 \
+	VFMADD231PD L1, B3, S7 \
+	ADDQ R8, R11 \
+	ADDQ $8, R12 \
+	DECQ BX \
+	JNZ rowloop \
+	VMOVUPD S0, (DI) \
+	VMOVUPD S1, V(DI) \
+	LEAQ (DI)(R8*1), R13 \
+	VMOVUPD S2, (R13) \
+	VMOVUPD S3, V(R13) \
+	ADDQ R8, R13 \
+	VMOVUPD S4, (R13) \
+	VMOVUPD S5, V(R13) \
+	ADDQ R8, R13 \
+	VMOVUPD S6, (R13) \
+	VMOVUPD S7, V(R13) \
+	ADDQ $(2*V), DI \
+	ADDQ $(2*V), SI \
+	SUBQ $C, CX \
+	JG colloop \
+	VZEROUPPER \
+	RET
+
 // func pair2AVX(out, a0, b0, a1, b1 *float64, n int, w0, w1 float64)
 // out[c] += w0*(a0[c]+b0[c]) + w1*(a1[c]+b1[c]) for c in [0, n), n % 4 == 0.
 TEXT ·pair2AVX(SB), NOSPLIT, $0-64
@@ -92,121 +154,14 @@ done1:
 // while the input rows stream past, so each input row is loaded once for
 // four outputs and no output is loaded or stored in the loop.
 TEXT ·band4AVX(SB), NOSPLIT, $0-48
-	MOVQ out+0(FP), DI
-	MOVQ src+8(FP), SI
-	MOVQ stride+16(FP), R8
-	SHLQ $3, R8
-	MOVQ cols+24(FP), CX
-	MOVQ w+32(FP), R9
-	MOVQ nj+40(FP), R10
-colloop:
-	VXORPD Y0, Y0, Y0
-	VXORPD Y1, Y1, Y1
-	VXORPD Y2, Y2, Y2
-	VXORPD Y3, Y3, Y3
-	VXORPD Y4, Y4, Y4
-	VXORPD Y5, Y5, Y5
-	VXORPD Y6, Y6, Y6
-	VXORPD Y7, Y7, Y7
-	MOVQ SI, R11
-	MOVQ R9, R12
-	MOVQ R10, BX
-rowloop:
-	VMOVUPD (R11), Y8
-	VMOVUPD 32(R11), Y9
-	VBROADCASTSD (R12), Y10
-	VFMADD231PD Y8, Y10, Y0
-	VFMADD231PD Y9, Y10, Y1
-	VBROADCASTSD -8(R12), Y11
-	VFMADD231PD Y8, Y11, Y2
-	VFMADD231PD Y9, Y11, Y3
-	VBROADCASTSD -16(R12), Y12
-	VFMADD231PD Y8, Y12, Y4
-	VFMADD231PD Y9, Y12, Y5
-	VBROADCASTSD -24(R12), Y13
-	VFMADD231PD Y8, Y13, Y6
-	VFMADD231PD Y9, Y13, Y7
-	ADDQ R8, R11
-	ADDQ $8, R12
-	DECQ BX
-	JNZ rowloop
-	VMOVUPD Y0, (DI)
-	VMOVUPD Y1, 32(DI)
-	LEAQ (DI)(R8*1), R13
-	VMOVUPD Y2, (R13)
-	VMOVUPD Y3, 32(R13)
-	ADDQ R8, R13
-	VMOVUPD Y4, (R13)
-	VMOVUPD Y5, 32(R13)
-	ADDQ R8, R13
-	VMOVUPD Y6, (R13)
-	VMOVUPD Y7, 32(R13)
-	ADDQ $64, DI
-	ADDQ $64, SI
-	SUBQ $8, CX
-	JG colloop
-	VZEROUPPER
-	RET
+	BAND4(VXORPD, Y0, Y1, Y2, Y3, Y4, Y5, Y6, Y7, Y8, Y9, Y10, Y11, Y12, Y13, 32, 8)
 
 // func band4Z(out, src *float64, stride, cols int, w *float64, nj int)
-// band4AVX with 512-bit registers: sixteen columns at a time, the same
-// fused multiply-adds in the same order per output (so the same bits).
+// band4AVX with 512-bit registers: sixteen columns at a time (cols a
+// positive multiple of 16), the same fused multiply-adds in the same order
+// per output (so the same bits).
 TEXT ·band4Z(SB), NOSPLIT, $0-48
-	MOVQ out+0(FP), DI
-	MOVQ src+8(FP), SI
-	MOVQ stride+16(FP), R8
-	SHLQ $3, R8
-	MOVQ cols+24(FP), CX
-	MOVQ w+32(FP), R9
-	MOVQ nj+40(FP), R10
-zcolloop:
-	VPXORQ Z0, Z0, Z0
-	VPXORQ Z1, Z1, Z1
-	VPXORQ Z2, Z2, Z2
-	VPXORQ Z3, Z3, Z3
-	VPXORQ Z4, Z4, Z4
-	VPXORQ Z5, Z5, Z5
-	VPXORQ Z6, Z6, Z6
-	VPXORQ Z7, Z7, Z7
-	MOVQ SI, R11
-	MOVQ R9, R12
-	MOVQ R10, BX
-zrowloop:
-	VMOVUPD (R11), Z8
-	VMOVUPD 64(R11), Z9
-	VBROADCASTSD (R12), Z10
-	VFMADD231PD Z8, Z10, Z0
-	VFMADD231PD Z9, Z10, Z1
-	VBROADCASTSD -8(R12), Z11
-	VFMADD231PD Z8, Z11, Z2
-	VFMADD231PD Z9, Z11, Z3
-	VBROADCASTSD -16(R12), Z12
-	VFMADD231PD Z8, Z12, Z4
-	VFMADD231PD Z9, Z12, Z5
-	VBROADCASTSD -24(R12), Z13
-	VFMADD231PD Z8, Z13, Z6
-	VFMADD231PD Z9, Z13, Z7
-	ADDQ R8, R11
-	ADDQ $8, R12
-	DECQ BX
-	JNZ zrowloop
-	VMOVUPD Z0, (DI)
-	VMOVUPD Z1, 64(DI)
-	LEAQ (DI)(R8*1), R13
-	VMOVUPD Z2, (R13)
-	VMOVUPD Z3, 64(R13)
-	ADDQ R8, R13
-	VMOVUPD Z4, (R13)
-	VMOVUPD Z5, 64(R13)
-	ADDQ R8, R13
-	VMOVUPD Z6, (R13)
-	VMOVUPD Z7, 64(R13)
-	ADDQ $128, DI
-	ADDQ $128, SI
-	SUBQ $16, CX
-	JG zcolloop
-	VZEROUPPER
-	RET
+	BAND4(VPXORQ, Z0, Z1, Z2, Z3, Z4, Z5, Z6, Z7, Z8, Z9, Z10, Z11, Z12, Z13, 64, 16)
 
 // func conv1dAVX(out, in *float64, n int, w *float64, nt int)
 // A correlation along a line: out[c] = sum_{t < nt} w[t] * in[c+t] for
