@@ -665,12 +665,12 @@ func (r *relaxation) update(hist []float64) {
 		// unstable factor grows without bound (a smoothed debiased solve
 		// at 96^2 went from 5.7e-6 to 1e+53 inside one settling window
 		// and took 1966 full-grid iterations). Both sides are estimates
-		// of the plain residual, as in the tests below.
-		runaway := r.norm(cur) > settleGrowth*r.best
-		if n-r.since < settle && !runaway {
+		// of the plain residual, as in the growth tests below, which a
+		// runaway passes.
+		if n-r.since < settle && r.norm(cur) <= settleGrowth*r.best {
 			return
 		}
-		if runaway || r.norm(cur) > 10*r.best || (n-r.since > sustain && r.norm(cur) > r.best) {
+		if r.norm(cur) > 10*r.best || (n-r.since > sustain && r.norm(cur) > r.best) {
 			// Back off by half the excess, and give up below 1.05. Close
 			// to the optimum the residual oscillates before it falls, and
 			// a refined omega may overshoot it: dropping to 1 for good
