@@ -282,14 +282,9 @@ func (a *absKernel) apply(dst, src, x []float64) {
 		a.rebuild(dst, src, x)
 		return
 	}
-	k := a.k
 	n := len(src)
-	ee, s1 := dst[:n], x[:n]
-	expShift(ee, src, a.ref, shift)
-	a.sums(s1, ee, a.p1, k.rows, k.cols)
-	transpose(dst, s1, k.rows, k.cols)
-	a.sums(x, dst, a.p2, k.cols, k.rows)
-	transpose(dst, x, k.cols, k.rows)
+	expShift(dst[:n], src, a.ref, shift)
+	a.linear(dst, dst, x)
 	if a.fast {
 		logAdd(dst[:len(src)], a.out0, shift)
 		return
@@ -297,6 +292,18 @@ func (a *absKernel) apply(dst, src, x []float64) {
 	for i, s := range dst[:len(src)] {
 		dst[i] = a.out0[i] + shift + math.Log(s)
 	}
+}
+
+// linear writes the two passes' window sums of e to dst (e may be dst; x
+// is scratch): the kernel applied to exp(h) is exp(out0) times the linear
+// sums of exp(h - ref), so that sums of the same instance give the plan's
+// conditional moments (see twoStepVariance).
+func (a *absKernel) linear(dst, e, x []float64) {
+	k := a.k
+	a.sums(x, e, a.p1, k.rows, k.cols)
+	transpose(dst, x, k.rows, k.cols)
+	a.sums(x, dst, a.p2, k.cols, k.rows)
+	transpose(dst, x, k.cols, k.rows)
 }
 
 // sums writes one pass's window sums of in to out, line by line (lines of

@@ -140,11 +140,14 @@ type Settings struct {
 // (0 is the full grid), that level's shape, its epsilon and representation,
 // and how far it got.
 type Stage struct {
-	Level          int
-	Rows, Cols     int
-	Epsilon        float64
-	Method         Method
-	Iterations     int
+	Level      int
+	Rows, Cols int
+	Epsilon    float64
+	Method     Method
+	Iterations int
+	// NewtonSteps counts the Newton steps of the stage's Newton phase
+	// (included in Iterations with all their kernel work; see newton.go).
+	NewtonSteps    int
 	Residual       float64
 	DebiasResidual float64
 	Elapsed        time.Duration
@@ -278,6 +281,7 @@ type problem struct {
 	mask          []bool
 	masses        []float64
 	dropped       []float64
+	noNewton      bool // tests: the last stage without its Newton phase
 }
 
 func setup(fields []*grid.Field, s Settings) (*problem, error) {

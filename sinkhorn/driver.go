@@ -348,22 +348,54 @@ func (rn *run) iterate(it iteration, lv *level, sp stagePlan, tol float64, budge
 	status := NotTerminated
 	msg := ""
 	mark := len(res.Residuals)
+	nw := rn.newtonFor(it, lv, final && sp.level == 0 && sp.eps == p.eps)
+	last := math.Inf(1)
 	for n := 0; ; n++ {
 		if n >= budget {
 			status = IterationLimit
 			break
 		}
-		om, peek := rl.next(len(hist), tol)
-		r := it.step(om)
-		res.Iterations++
-		if sp.level == 0 {
-			res.FinestIterations++
+		var r float64
+		peek, used := false, 1
+		if nw != nil && nw.ready(last, budget-n) {
+			// A Newton step: its kernel work counts as iterations, each
+			// recording the residual of the iterate in force.
+			r0 := last
+			var ok bool
+			r, used, ok = nw.step()
+			if !ok {
+				nw.pause = pauseAfterFail
+			}
+			for i := range used {
+				x := r0
+				if i == used-1 {
+					x = r
+				}
+				res.Residuals = append(res.Residuals, x)
+			}
+			res.Iterations += used
+			res.FinestIterations += used
+			stage.Iterations += used
+			stage.NewtonSteps++
+			n += used - 1
+		} else {
+			var om float64
+			om, peek = rl.next(len(hist), tol)
+			r = it.step(om)
+			res.Iterations++
+			if sp.level == 0 {
+				res.FinestIterations++
+			}
+			stage.Iterations++
+			res.Residuals = append(res.Residuals, r)
+			if !peek {
+				hist = append(hist, r)
+			}
+			if nw != nil {
+				nw.reset()
+			}
 		}
-		stage.Iterations++
-		res.Residuals = append(res.Residuals, r)
-		if !peek {
-			hist = append(hist, r)
-		}
+		last = r
 		res.Residual, res.DebiasResidual = r, it.debiasResidual()
 		stage.Residual, stage.DebiasResidual = r, it.debiasResidual()
 		if p.progress != nil {
@@ -378,9 +410,14 @@ func (rn *run) iterate(it iteration, lv *level, sp stagePlan, tol float64, budge
 			status, msg = NumericalFailure, m
 			break
 		}
-		if r <= tol || (n+1)%checkEvery == 0 {
+		// Every checkEvery iterations, or after a Newton step that passed
+		// a multiple of it.
+		if r <= tol || (n+1)/checkEvery > (n+1-used)/checkEvery {
 			r2, widened := it.verify(r, tol)
 			if widened {
+				if nw != nil {
+					nw.reset()
+				}
 				continue
 			}
 			r = r2
@@ -390,9 +427,12 @@ func (rn *run) iterate(it iteration, lv *level, sp stagePlan, tol float64, budge
 			status = Converged
 			break
 		}
-		if peek {
+		switch {
+		case nw != nil && nw.steps > 0:
+			// The relaxation's history ended with the sweeps.
+		case peek:
 			rl.peeked(len(hist), r)
-		} else {
+		default:
 			rl.update(hist)
 		}
 	}
