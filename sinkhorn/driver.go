@@ -366,6 +366,14 @@ func (rn *run) iterate(it iteration, lv *level, sp stagePlan, tol float64, budge
 			if !ok {
 				nw.pause = pauseAfterFail
 			}
+			if nw.stalled(r, used) {
+				// Back to the sweeps, with a relaxation that starts afresh:
+				// the history before the phase describes another state.
+				nw = nil
+				rl = newRelaxation(relax)
+				rl.backOff = p.rho == 0
+				hist = hist[:0]
+			}
 			for i := range used {
 				x := r0
 				if i == used-1 {
@@ -428,6 +436,8 @@ func (rn *run) iterate(it iteration, lv *level, sp stagePlan, tol float64, budge
 			break
 		}
 		switch {
+		case used > 1:
+			// A Newton step; the relaxation's history ended with the sweeps.
 		case nw != nil && nw.steps > 0:
 			// The relaxation's history ended with the sweeps.
 		case peek:
