@@ -132,7 +132,17 @@ func stateBytes(k, n int) float64 { return 12 * 8 * float64(k) * float64(n) }
 // once.
 func MemoryEstimate(k, rows, cols int) float64 {
 	n := rows * cols
-	return 1.4 * (stateBytes(k, n) + absorbBudget(k, n))
+	return 1.4*(stateBytes(k, n)+absorbBudget(k, n)) + newtonMemory(k, n)
+}
+
+// newtonMemory is what the Newton phase adds where it runs (newton.go;
+// measured at 8 x 512^2: 1.33 GB peak against 555 MB without it).
+func newtonMemory(k, n int) float64 {
+	b := float64(newtonVectors) * float64(k*n) * 8
+	if b > newtonBytes {
+		return 0
+	}
+	return b
 }
 
 // absorbBytes estimates one absorbed instance's memory on the level: the

@@ -149,7 +149,7 @@ func (rn *run) newtonFor(it iteration, lv *level, final bool) *newton {
 		return nil
 	}
 	K := len(lv.a)
-	if float64(newtonVectors)*float64(K*lv.n)*8 > newtonBytes {
+	if newtonMemory(K, lv.n) == 0 {
 		return nil
 	}
 	alloc := func() [][]float64 {
