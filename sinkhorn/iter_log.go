@@ -210,6 +210,25 @@ func (st *logIter) verify(r, tol float64) (float64, bool) {
 	return r, true
 }
 
+// sumLogB sets chunk c of log b by logMarginal's rule for a plain balanced
+// problem: sum_k w_k log K u_k in the order of k (so the same bits), then
+// maskLogB.
+func (st *logIter) sumLogB(c int) {
+	lv := st.lv
+	lb := st.lb[c*chunk : min((c+1)*chunk, lv.n)]
+	clear(lb)
+	for k, w := range st.p.w {
+		if w != 0 {
+			lku := st.LKu[k][c*chunk:]
+			lku = lku[:len(lb)]
+			for i, x := range lku {
+				lb[i] += w * x
+			}
+		}
+	}
+	maskLogB(lb, lv, c*chunk)
+}
+
 // fullResidual is the step's residual, max_k |u_k K v_k - a_k|_1 / |a_k|,
 // with the full log-sum-exp kernel.
 func (st *logIter) fullResidual() float64 {
@@ -283,20 +302,7 @@ func (st *logIter) step(omega float64) float64 {
 	sum := lv.lt == nil && st.ld == nil && lam == 1
 	parallel.For(nc, p.workers, func(c int) {
 		if sum {
-			// logMarginal's rule a chunk at a time: sum_k w_k log K u_k
-			// in the same order of k (so the same bits), then maskLogB.
-			lb := st.lb[c*chunk : min((c+1)*chunk, lv.n)]
-			clear(lb)
-			for k, w := range p.w {
-				if w != 0 {
-					lku := st.LKu[k][c*chunk:]
-					lku = lku[:len(lb)]
-					for i, x := range lku {
-						lb[i] += w * x
-					}
-				}
-			}
-			maskLogB(lb, lv, c*chunk)
+			st.sumLogB(c)
 			return
 		}
 		l := st.l[c]

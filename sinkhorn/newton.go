@@ -407,8 +407,7 @@ func (nw *newton) cgs(w [][]float64, j int, g []float64) float64 {
 			g[i] += part[k][i]
 		}
 	}
-	norm := make([]float64, nw.K)
-	parallel.For(nw.K, workers, func(k int) {
+	return math.Sqrt(nw.sumInputs(func(k int) float64 {
 		wk := w[k]
 		for i, c := range g {
 			vi := nw.v[i][k]
@@ -420,13 +419,8 @@ func (nw *newton) cgs(w [][]float64, j int, g []float64) float64 {
 		for l, x := range wk {
 			s += nw.wt[l] * x * x
 		}
-		norm[k] = s
-	})
-	s := 0.0
-	for _, x := range norm {
-		s += x
-	}
-	return math.Sqrt(s)
+		return s
+	}))
 }
 
 // gauge removes from a step d its part in the null space of I - Phi':
@@ -459,17 +453,11 @@ func (nw *newton) gauge(d [][]float64) {
 	})
 }
 
-// dot is the weighted product over all inputs, summed in input order (the
-// same bits for any number of workers).
-func (nw *newton) dot(a, b [][]float64) float64 {
-	part := make([]float64, len(a))
-	parallel.For(len(a), nw.st.p.workers, func(k int) {
-		s := 0.0
-		for i, x := range a[k] {
-			s += nw.wt[i] * x * b[k][i]
-		}
-		part[k] = s
-	})
+// sumInputs returns the sum over inputs of f(k), computed in parallel and
+// added in input order (the same bits for any number of workers).
+func (nw *newton) sumInputs(f func(k int) float64) float64 {
+	part := make([]float64, nw.K)
+	parallel.For(nw.K, nw.st.p.workers, func(k int) { part[k] = f(k) })
 	s := 0.0
 	for _, x := range part {
 		s += x
@@ -477,22 +465,27 @@ func (nw *newton) dot(a, b [][]float64) float64 {
 	return s
 }
 
+// dot is the weighted product over all inputs.
+func (nw *newton) dot(a, b [][]float64) float64 {
+	return nw.sumInputs(func(k int) float64 {
+		s := 0.0
+		for i, x := range a[k] {
+			s += nw.wt[i] * x * b[k][i]
+		}
+		return s
+	})
+}
+
 // meritOf is |a - b| in the weighted norm.
 func (nw *newton) meritOf(a, b [][]float64) float64 {
-	part := make([]float64, len(a))
-	parallel.For(len(a), nw.st.p.workers, func(k int) {
+	return math.Sqrt(nw.sumInputs(func(k int) float64 {
 		s := 0.0
 		for i, x := range a[k] {
 			d := x - b[k][i]
 			s += nw.wt[i] * d * d
 		}
-		part[k] = s
-	})
-	s := 0.0
-	for _, x := range part {
-		s += x
-	}
-	return math.Sqrt(s)
+		return s
+	}))
 }
 
 func copy2(dst, src [][]float64) {
@@ -534,21 +527,7 @@ func (st *logIter) phiOf(x, out [][]float64) {
 		relaxLog(st.F[k], lv.la[k], st.LKv[k], 1, false)
 		st.conv(K+k, st.LKu[k], st.F[k], k)
 	})
-	nc := (lv.n + chunk - 1) / chunk
-	parallel.For(nc, p.workers, func(c int) {
-		lb := st.lb[c*chunk : min((c+1)*chunk, lv.n)]
-		clear(lb)
-		for k, w := range p.w {
-			if w != 0 {
-				lku := st.LKu[k][c*chunk:]
-				lku = lku[:len(lb)]
-				for i, x := range lku {
-					lb[i] += w * x
-				}
-			}
-		}
-		maskLogB(lb, lv, c*chunk)
-	})
+	parallel.For((lv.n+chunk-1)/chunk, p.workers, st.sumLogB)
 	parallel.For(K, p.workers, func(k int) {
 		relaxLog(out[k], st.lb, st.LKu[k], 1, true)
 	})
