@@ -44,6 +44,7 @@ type Stage struct {
 	Epsilon        float64 `json:"epsilon"`
 	Method         string  `json:"method"`
 	Iterations     int     `json:"iterations"`
+	NewtonSteps    int     `json:"newton_steps,omitempty"`
 	Residual       float64 `json:"residual"`
 	DebiasResidual float64 `json:"debias_residual,omitempty"`
 	Seconds        float64 `json:"seconds"`
@@ -156,7 +157,7 @@ func StagesOf(st []sinkhorn.Stage) []Stage {
 	out := make([]Stage, len(st))
 	for i, s := range st {
 		out[i] = Stage{Level: s.Level, Shape: [2]int{s.Rows, s.Cols}, Epsilon: s.Epsilon, Method: s.Method.String(),
-			Iterations: s.Iterations, Residual: s.Residual, DebiasResidual: s.DebiasResidual, Seconds: s.Elapsed.Seconds()}
+			Iterations: s.Iterations, NewtonSteps: s.NewtonSteps, Residual: s.Residual, DebiasResidual: s.DebiasResidual, Seconds: s.Elapsed.Seconds()}
 	}
 	return out
 }

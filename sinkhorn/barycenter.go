@@ -145,8 +145,8 @@ type Stage struct {
 	Epsilon    float64
 	Method     Method
 	Iterations int
-	// NewtonSteps counts the Newton steps of the stage's Newton phase
-	// (included in Iterations with all their kernel work; see newton.go).
+	// NewtonSteps counts the Newton steps the stage attempted, taken or
+	// not (their kernel work is in Iterations; see newton.go).
 	NewtonSteps    int
 	Residual       float64
 	DebiasResidual float64

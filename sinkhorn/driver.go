@@ -366,6 +366,7 @@ func (rn *run) iterate(it iteration, lv *level, sp stagePlan, tol float64, budge
 			if !ok {
 				nw.pause = pauseAfterFail
 			}
+			stage.NewtonSteps = nw.tried
 			if nw.stalled(r, used) {
 				// Back to the sweeps, with a relaxation that starts afresh:
 				// the history before the phase describes another state.
@@ -384,7 +385,6 @@ func (rn *run) iterate(it iteration, lv *level, sp stagePlan, tol float64, budge
 			res.Iterations += used
 			res.FinestIterations += used
 			stage.Iterations += used
-			stage.NewtonSteps++
 			n += used - 1
 		} else {
 			var om float64

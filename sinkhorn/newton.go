@@ -102,6 +102,7 @@ type newton struct {
 	wt    []float64 // weights of the inner product: (b / max b)^2
 	pause int       // sweeps left before the next Newton step
 	steps int       // Newton steps taken
+	tried int       // Newton steps attempted, taken or not
 	// track holds the residual and the phase's iterations after each
 	// step, for stalled.
 	track [][2]float64
@@ -226,6 +227,7 @@ func (nw *newton) step() (r float64, used int, ok bool) {
 	if nw.merit < 0 {
 		nw.merit = nw.meritOf(nw.phi, nw.base)
 	}
+	nw.tried++
 	// GMRES on (I - Phi') d = Phi(base) - base, right-preconditioned.
 	d, products := nw.gmres()
 	used += products
