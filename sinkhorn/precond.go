@@ -254,27 +254,50 @@ type mgLevel struct {
 }
 
 // newMGLevel builds the hierarchy for div(b S grad) / 2 with S = [[sr,
-// sx], [sx, sc]] (rows, columns; unpadded arrays): face couplings 0.25
-// (b_p S_p + b_q S_q) along each axis, diagonal ones +-0.125 (b_p sx_p +
-// b_q sx_q) (the standard mixed-derivative stencil, positive definite for
-// |sx| < sqrt(sr sc)).
+// sx], [sx, sc]] (rows, columns; unpadded arrays). Each pixel's tensor is
+// split into non-negative weights on three directions (Selling's
+// decomposition; Fehrenbach & Mirebeau, J. Math. Imaging Vision 49, 2014):
+// S = (sr - |c|) e_r e_r^T + (sc - |c|) e_c e_c^T + |c| e e^T with c = sx
+// clipped to min(sr, sc) and e = e_r + sign(c) e_c, and a coupling takes
+// the mean of its two pixels' b-weighted weights along its direction. All
+// couplings are then non-negative, so the operator is positive
+// semi-definite however the coefficients vary (the mixed-derivative
+// stencil it replaces was not, and its multigrid diverged on rough cross
+// terms).
 func newMGLevel(rows, cols int, b, sr, sc, sx []float64) *mgLevel {
 	m := newMGGrid(rows, cols)
 	s := m.s
+	n := rows * cols
+	wr, wc, wd := make([]float64, n), make([]float64, n), make([]float64, n)
+	for p := range n {
+		c := 0.0
+		if sx != nil {
+			lim := math.Min(sr[p], sc[p])
+			c = math.Max(-lim, math.Min(lim, sx[p]))
+		}
+		wr[p], wc[p], wd[p] = b[p]*(sr[p]-math.Abs(c)), b[p]*(sc[p]-math.Abs(c)), b[p]*c
+	}
+	// diag returns pixel p's weight on the diagonal of sign sg.
+	diag := func(p int, sg float64) float64 {
+		if wd[p]*sg > 0 {
+			return math.Abs(wd[p])
+		}
+		return 0
+	}
 	for i := range rows {
 		for j := range cols {
 			p, P := i*cols+j, (i+1)*s+j+1
 			if j+1 < cols {
-				m.c[0][P] = 0.25 * (b[p]*sc[p] + b[p+1]*sc[p+1])
+				m.c[0][P] = 0.25 * (wc[p] + wc[p+1])
 			}
 			if i+1 < rows {
 				q := p + cols
-				m.c[1][P] = 0.25 * (b[p]*sr[p] + b[q]*sr[q])
-				if sx != nil && j+1 < cols {
-					m.c[2][P] = 0.125 * (b[p]*sx[p] + b[q+1]*sx[q+1])
+				m.c[1][P] = 0.25 * (wr[p] + wr[q])
+				if j+1 < cols {
+					m.c[2][P] = 0.25 * (diag(p, 1) + diag(q+1, 1))
 				}
-				if sx != nil && j > 0 {
-					m.c[3][P] = -0.125 * (b[p]*sx[p] + b[q-1]*sx[q-1])
+				if j > 0 {
+					m.c[3][P] = 0.25 * (diag(p, -1) + diag(q-1, -1))
 				}
 			}
 		}
