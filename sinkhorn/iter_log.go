@@ -136,7 +136,7 @@ func MemoryEstimate(k, rows, cols int) float64 {
 }
 
 // newtonMemory is what the Newton phase adds where it runs (newton.go;
-// measured at 8 x 512^2: 1.33 GB peak against 555 MB without it).
+// measured at 8 x 512^2: 1.33-1.38 GB peak against 555 MB without it).
 func newtonMemory(k, n int) float64 {
 	b := float64(newtonVectors) * float64(k*n) * 8
 	if b > newtonBytes {

@@ -54,8 +54,8 @@ const (
 	krylovDim = 10
 	// newtonVectors is about the memory of the phase in grids of K n
 	// float64s: the Krylov vectors, four more, the multigrid hierarchy
-	// and the build's moments (measured at 8 x 512^2: 725 MB over the
-	// sweeps' 555 MB, 43 such grids).
+	// and the build's moments (measured at 8 x 512^2: a peak of 1.33-1.38
+	// GB against the sweeps' 555 MB, 46-49 such grids).
 	newtonVectors = krylovDim + 1 + 4 + 38
 	// newtonBytes bounds that memory; larger problems keep the sweeps
 	// (8 inputs of 512^2 take about 890 MB; 32 would take 3.6 GB).
