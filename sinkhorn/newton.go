@@ -232,15 +232,7 @@ func (nw *newton) step() (r float64, used int, ok bool) {
 	d, products := nw.gmres()
 	used += products
 	nw.gauge(d)
-	dmax := 0.0
-	for k := range d {
-		for _, x := range d[k] {
-			if a := math.Abs(x); !(a <= dmax) && !math.IsNaN(dmax) {
-				dmax = a
-			}
-		}
-	}
-	if dmax <= maxStep {
+	if nw.bounded(d) {
 		for _, t := range []float64{1, 0.5, 0.25} {
 			parallel.For(nw.K, st.p.workers, func(k int) {
 				for i, b := range nw.base[k] {
@@ -315,7 +307,11 @@ func (nw *newton) gmres() ([][]float64, int) {
 			}
 			zm[k] = m
 		})
-		e := fdStep / slices.Max(zm)
+		zmax := slices.Max(zm)
+		if zmax == 0 || math.IsNaN(zmax) {
+			break // nothing to difference along: keep the basis so far
+		}
+		e := fdStep / zmax
 		parallel.For(nw.K, st.p.workers, func(k int) {
 			for i, b := range nw.base[k] {
 				nw.x[k][i] = b + e*nw.z[k][i]
@@ -425,6 +421,18 @@ func (nw *newton) cgs(w [][]float64, j int, g []float64) float64 {
 	}))
 }
 
+// bounded reports whether every entry of d is within maxStep (NaN is not).
+func (nw *newton) bounded(d [][]float64) bool {
+	for k := range d {
+		for _, x := range d[k] {
+			if !(math.Abs(x) <= maxStep) {
+				return false
+			}
+		}
+	}
+	return true
+}
+
 // gauge removes from a step d its part in the null space of I - Phi':
 // constants c_k per input with sum_k w_k c_k = 0 (Phi(g + c) = Phi(g) + c;
 // they leave every plan as it is). Each d_k keeps the b-weighted mean of
@@ -432,13 +440,11 @@ func (nw *newton) cgs(w [][]float64, j int, g []float64) float64 {
 // plans (GMRES left constants of several hundred in d at 256^2).
 func (nw *newton) gauge(d [][]float64) {
 	st := nw.st
-	peak := slices.Max(st.lb)
 	m := make([]float64, nw.K)
 	parallel.For(nw.K, st.p.workers, func(k int) {
 		s, sb := 0.0, 0.0
-		for i, x := range d[k] {
-			b := math.Exp(st.lb[i] - peak)
-			s += b * x
+		for i, b := range nw.pc.b { // b at the build: any positive weights do
+			s += b * d[k][i]
 			sb += b
 		}
 		m[k] = s / sb

@@ -14,11 +14,9 @@ import (
 // iterations), with b floored at bFloor of its peak, solved approximately
 // by multigrid.
 type precond struct {
-	rows, cols int
-	bf, b      []float64
-	mg         []*mgLevel // per input, the finest level
-	rbar       []float64
-	f          [][]float64 // per input, the right-hand side
+	b    []float64  // b / max b at the build
+	mg   []*mgLevel // per input, the finest level
+	rbar []float64
 }
 
 // newPrecond builds the model at the iteration's state: G the current log
@@ -26,18 +24,16 @@ type precond struct {
 func newPrecond(st *logIter, G [][]float64) *precond {
 	p, lv := st.p, st.lv
 	K, n := len(lv.a), lv.n
-	pc := &precond{rows: lv.rows, cols: lv.cols, bf: make([]float64, n), b: make([]float64, n), mg: make([]*mgLevel, K), rbar: make([]float64, n), f: make([][]float64, K)}
-	for k := range pc.f {
-		pc.f[k] = make([]float64, n)
-	}
+	pc := &precond{b: make([]float64, n), mg: make([]*mgLevel, K), rbar: make([]float64, n)}
+	bf := make([]float64, n)
 	peak := slices.Max(st.lb)
 	for i, x := range st.lb {
 		pc.b[i] = math.Exp(x - peak)
-		pc.bf[i] = math.Max(pc.b[i], bFloor)
+		bf[i] = math.Max(pc.b[i], bFloor)
 	}
 	parallel.For(K, p.workers, func(k int) {
 		sr, sc, sx := st.twoStepVariance(k, G[k])
-		pc.mg[k] = newMGLevel(lv.rows, lv.cols, pc.bf, sr, sc, sx)
+		pc.mg[k] = newMGLevel(lv.rows, lv.cols, bf, sr, sc, sx)
 	})
 	return pc
 }
@@ -178,17 +174,15 @@ func (st *logIter) twoStepVariance(k int, G []float64) (sr, sc, sx []float64) {
 	for i := range x {
 		cr, cc := coord(0, i), coord(1, i)
 		x[i] += e[i] + cr*cc - cr*ER[1][i] - cc*ER[0][i]
-		// Keep the tensor positive definite (the stencil's condition).
-		lim := 0.9 * math.Sqrt(S[0][i]*S[1][i])
-		x[i] = math.Max(-lim, math.Min(lim, x[i]))
 	}
 	return S[0], S[1], S[2]
 }
 
-// apply writes the preconditioned vector of r to out: d_k solves
-// L_k d_k = b (r_k - rbar) approximately (vCycles V-cycles from zero;
+// apply writes the preconditioned vector of r to out (not r): d_k solves
+// L_k d_k = b (r_k - rbar) approximately (vCycles W-cycles from zero;
 // the same linear map every time), d is projected onto sum_k w_k d_k = 0,
-// and r is added back.
+// and r is added back. The right-hand side is built in out, which the
+// multigrid reads before it writes.
 func (pc *precond) apply(out, r [][]float64, w []float64, workers int) {
 	clear(pc.rbar)
 	for k, wk := range w {
@@ -198,7 +192,7 @@ func (pc *precond) apply(out, r [][]float64, w []float64, workers int) {
 	}
 	parallel.For(len(r), workers, func(k int) {
 		m := pc.mg[k]
-		f, x := pc.f[k], out[k]
+		f, x := out[k], out[k]
 		mean := 0.0
 		for i, b := range pc.b {
 			f[i] = b * (r[k][i] - pc.rbar[i])
